@@ -1,0 +1,42 @@
+# orbtool — the two commands the README shows are `make demo` and `make test`.
+PY ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP_DEMO := $(VENV)/.stamp-demo
+STAMP_TEST := $(VENV)/.stamp-test
+
+.PHONY: demo test lint bench demo-data external-data clean-venv
+
+$(BIN)/python:
+	$(PY) -m venv $(VENV)
+	$(BIN)/python -m pip install -q --upgrade pip
+
+$(STAMP_DEMO): pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install -q -e .
+	touch $@
+
+$(STAMP_TEST): pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install -q -e ".[test]"
+	touch $(STAMP_DEMO) $@
+
+demo: $(STAMP_DEMO)
+	$(BIN)/orbtool demo --out sample_outputs --force
+
+test: $(STAMP_TEST)
+	$(BIN)/python -m ruff check orbtool tests benchmarks
+	$(BIN)/python -m pytest -q
+
+lint: $(STAMP_TEST)
+	$(BIN)/python -m ruff check orbtool tests benchmarks
+
+bench: $(STAMP_TEST)
+	$(BIN)/python benchmarks/run_all.py
+
+demo-data: $(STAMP_DEMO)
+	$(BIN)/python -m orbtool.demo.generate
+
+external-data: $(STAMP_TEST)
+	$(BIN)/python tests/external/generate.py
+
+clean-venv:
+	rm -rf $(VENV)
