@@ -158,7 +158,8 @@ class ProjectedDOS:
             if x is None:
                 return None
             return {x} if isinstance(x, kind) else set(x)
-        A, E, O, L = _set(atoms, (int, np.integer)), _set(elements, str), _set(orbitals, str), _set(l, (int, np.integer))
+        ints = (int, np.integer)
+        A, E, O, L = _set(atoms, ints), _set(elements, str), _set(orbitals, str), _set(l, ints)
         m = np.ones(len(self.channels), dtype=bool)
         for i, c in enumerate(self.channels):
             if A is not None and c.atom not in A:
