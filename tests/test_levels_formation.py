@@ -1,0 +1,161 @@
+"""Formation energies, transition levels and chemical-potential ranges, checked by hand.
+
+Formalism: S. B. Zhang & J. E. Northrup, PRL 67, 2339 (1991); C. Freysoldt et al., Rev. Mod. Phys. 86, 253
+(2014), eq. 1 (formation energy) and eq. 4 (transition level ε(q/q') = [E_f(q;0) − E_f(q';0)]/(q' − q)).
+"""
+
+import json
+import math
+
+import numpy as np
+import pytest
+from ase.build import bulk
+
+from orbtool.case import DefectCase
+from orbtool.errors import InputFormatError, ModelError
+from orbtool.levels import ChargeState, charge_correction, formation_energies, stability_region
+
+# hand-built example: an O vacancy (one O removed, n_O = −1) in a 0/+1 pair
+E_HOST = -812.345678
+E_DEF0 = -805.123456
+E_DEF1 = -808.987654
+MU_O = -4.918273
+E_VBM = 3.141593
+CORR1 = 0.271828
+
+
+def _by_hand():
+    # Freysoldt 2014 eq. 1 at E_F = 0, written out term by term
+    ef0 = E_DEF0 - E_HOST - (-1) * MU_O  # = 2.303949
+    ef1 = E_DEF1 - E_HOST - (-1) * MU_O + 1 * E_VBM + CORR1  # = 1.853172
+    return ef0, ef1, (ef1 - ef0) / (0 - 1)  # eq. 4 with q = +1, q' = 0
+
+
+def test_worked_transition_level_to_1e12():
+    ef0, ef1, eps10 = _by_hand()
+    states = [ChargeState(0, E_DEF0), ChargeState(1, E_DEF1, correction=CORR1)]
+    d = formation_energies(states, {"O": MU_O}, vbm=E_VBM, gap=1.5, exchanged={"O": -1},
+                           host_total_energy=E_HOST, name="V_O")
+    assert d.formation_energy(0) == pytest.approx(ef0, abs=1e-12)
+    assert d.formation_energy(1) == pytest.approx(ef1, abs=1e-12)
+    assert eps10 == pytest.approx(0.450777, abs=1e-9)  # the arithmetic itself, done on paper
+    [t] = d.transitions
+    assert (t.charge_from, t.charge_to) == (1, 0)
+    assert t.above_vbm == pytest.approx(eps10, abs=1e-12)
+    assert t.below_cbm == pytest.approx(1.5 - eps10, abs=1e-12)
+    assert t.in_gap and t.label == "ε(+1/0)"
+    assert d.level(1, 0) == pytest.approx(eps10, abs=1e-12)
+    ranges = d.stable_ranges()
+    assert ranges[1] == pytest.approx((0.0, eps10), abs=1e-12)
+    assert ranges[0] == pytest.approx((eps10, 1.5), abs=1e-12)
+    # E_f(q, E_F) = E_f(q, 0) + q E_F; the lowest one switches at ε
+    ef = np.array([0.2, 0.7])
+    e, q = d.lowest(ef)
+    assert q.tolist() == [1, 0]
+    assert e == pytest.approx([ef1 + 0.2, ef0], abs=1e-12)
+    json.dumps(d.to_dict())
+    assert "ε(+1/0)" in d.summary()
+
+
+def test_negative_u_skips_the_middle_state():
+    # three states with ε(+1/0) above ε(0/−1): the neutral state is never lowest and the envelope
+    # goes straight from +1 to −1 at ε(+1/−1) = [E_f(+1;0) − E_f(−1;0)]/2 (Freysoldt 2014, sec. V.C)
+    states = [ChargeState(1, -10.0), ChargeState(0, -8.0), ChargeState(-1, -7.5)]
+    d = formation_energies(states, {}, vbm=0.0, gap=3.0, exchanged={}, host_total_energy=-12.0)
+    # E_f(0) at VBM: +1 → 2.0, 0 → 4.0, −1 → 4.5 ; ε(+/0) = 2.0, ε(0/−) = 0.5, ε(+/−) = (2.0 − 4.5)/(−2) = 1.25
+    assert [(t.charge_from, t.charge_to) for t in d.transitions] == [(1, -1)]
+    assert d.transitions[0].above_vbm == pytest.approx(1.25, abs=1e-12)
+    assert d.stable_ranges()[0] is None
+    assert any("never the lowest" in n for n in d.notes)
+
+
+def test_levels_outside_gap_are_reported_not_clipped():
+    states = [ChargeState(2, -8.0), ChargeState(1, -9.0)]
+    # E_f(0): +2 → 4.0 ; +1 → 3.0 ; ε(+2/+1) = (4 − 3)/(1 − 2) = −1.0 (below the VBM)
+    d = formation_energies(states, {}, vbm=0.0, gap=2.0, exchanged={}, host_total_energy=-12.0)
+    [t] = d.transitions
+    assert t.above_vbm == pytest.approx(-1.0) and not t.in_gap
+    assert d.stable_ranges() == {2: None, 1: (0.0, 2.0)}
+    assert any("below the VBM" in n for n in d.notes)
+
+
+def test_from_defect_case_counts_removed_atoms():
+    host = bulk("MgO", "rocksalt", a=4.2, cubic=True)
+    defect = host.copy()
+    del defect[[a.index for a in defect if a.symbol == "O"][0]]
+    c0 = DefectCase(name="V_O^0", defect=defect, host=host, charge=0, total_energy=E_DEF0, host_total_energy=E_HOST)
+    c1 = c0.replace(name="V_O^+", charge=1, total_energy=E_DEF1)
+    corr = charge_correction(1, host.cell[:], 9.8)
+    s1 = ChargeState.from_case(c1, correction=corr)
+    assert s1.exchanged == {"O": -1}
+    assert s1.correction == corr.energy and s1.correction_detail is corr
+    d = formation_energies([c0, s1], {"O": MU_O, "Mg": -1.0}, vbm=E_VBM, gap=7.8)
+    ef1 = E_DEF1 - E_HOST + MU_O + E_VBM + corr.energy
+    assert d.formation_energy(1) == pytest.approx(ef1, abs=1e-12)
+    with pytest.raises(InputFormatError, match="correction is for"):
+        ChargeState.from_case(c0, correction=corr)
+
+
+def test_binary_region_closed_form_and_linprog_agree():
+    # Ga2O3 with ΔH = −11.3 eV: Ga-rich Δμ_Ga = 0 → Δμ_O = −11.3/3; O-rich Δμ_O = 0 → Δμ_Ga = −11.3/2
+    # (Zhang & Northrup 1991 bounds, by hand)
+    r = stability_region("Ga2O3", -11.3)
+    assert r.method.startswith("closed form")
+    assert r.bounds["Ga"] == pytest.approx((-11.3 / 2, 0.0), abs=1e-12)
+    assert r.bounds["O"] == pytest.approx((-11.3 / 3, 0.0), abs=1e-12)
+    rich = r.rich("Ga", references={"Ga": -3.0, "O": -4.9})
+    assert rich.delta == pytest.approx({"Ga": 0.0, "O": -11.3 / 3}, abs=1e-12)
+    assert rich.absolute == pytest.approx({"Ga": -3.0, "O": -4.9 - 11.3 / 3}, abs=1e-12)
+    # a competing sub-oxide GaO (ΔH = −4.5 eV) that cuts the Ga-rich end: Δμ_Ga + Δμ_O ≤ −4.5 with
+    # 2Δμ_Ga + 3Δμ_O = −11.3 gives Δμ_Ga ≤ −2.2 (by hand: Δμ_O = −4.5 − Δμ_Ga → −Δμ_Ga − 13.5 = −11.3)
+    r2 = stability_region("Ga2O3", -11.3, [("GaO", -4.5)])
+    r3 = stability_region("Ga2O3", -11.3, [("GaO", -4.5)], method="linprog")
+    assert r2.bounds["Ga"] == pytest.approx((-5.65, -2.2), abs=1e-9)
+    for e in ("Ga", "O"):
+        assert r3.bounds[e] == pytest.approx(r2.bounds[e], abs=1e-8)
+
+
+def test_ternary_region_corners_by_hand():
+    # ZnSnN2 (ΔH = −1.0) with Zn3N2 (−0.3) and Sn3N4 (−0.5). Corner with Δμ_Zn = 0 on Zn3N2:
+    # 2Δμ_N = −0.3 → Δμ_N = −0.15, Δμ_Sn = −1.0 + 0.3 = −0.7 (by hand)
+    r = stability_region("ZnSnN2", -1.0, [("Zn3N2", -0.3), ("Sn3N4", -0.5)])
+    assert r.method == "linear programming"
+    corners = {tuple(np.round(v, 9)) for v in r.vertices}
+    assert (0.0, -0.7, -0.15) in corners
+    # Δμ_N = 0 on Sn3N4: Δμ_Sn = −0.5/3, Δμ_Zn = −1 + 0.5/3 (by hand)
+    assert tuple(np.round([-1 + 0.5 / 3, -0.5 / 3, 0.0], 9)) in corners
+    assert r.bounds["N"] == pytest.approx((-0.5, 0.0), abs=1e-8)
+    assert r.at({"Zn": -0.1, "Sn": -0.5}).delta["N"] == pytest.approx((-1.0 + 0.6) / 2, abs=1e-12)
+
+
+def test_bad_inputs_raise_clear_errors():
+    states = [ChargeState(0, -1.0), ChargeState(0, -2.0)]
+    with pytest.raises(InputFormatError, match="more than once"):
+        formation_energies(states, {"O": -4.0}, vbm=0, gap=1, exchanged={"O": -1}, host_total_energy=-3.0)
+    with pytest.raises(InputFormatError, match="no host total energy"):
+        formation_energies([ChargeState(0, -1.0)], {"O": -4.0}, vbm=0, gap=1, exchanged={"O": -1})
+    with pytest.raises(InputFormatError, match="different host energies"):
+        formation_energies([ChargeState(0, -1.0, -3.0), ChargeState(1, -1.0, -3.5)], {"O": -4.0}, vbm=0, gap=1,
+                           exchanged={"O": -1})
+    with pytest.raises(ModelError, match="chemical potential missing"):
+        formation_energies([ChargeState(0, -1.0, -3.0)], {"Mg": -1.0}, vbm=0, gap=1, exchanged={"O": -1})
+    with pytest.raises(ModelError, match="gap must be positive"):
+        formation_energies([ChargeState(0, -1.0, -3.0)], {"O": -1.0}, vbm=0, gap=0, exchanged={"O": -1})
+    with pytest.raises(InputFormatError, match="integer"):
+        ChargeState(0.5, -1.0)
+    with pytest.raises(InputFormatError, match="finite"):
+        ChargeState(0, math.nan)
+    r = stability_region("ZnO", -3.6)
+    with pytest.raises(ModelError, match="outside the stability region.*elemental Zn"):
+        r.at({"Zn": 0.2})
+    with pytest.raises(ModelError, match="ΔH_f"):
+        r.at({"Zn": -1.0, "O": -1.0})
+    with pytest.raises(ModelError, match="negative"):
+        stability_region("ZnO", 0.4)
+    with pytest.raises(ModelError, match="not stable"):
+        stability_region("ZnO", -3.6, [("ZnO2", -9.0)])
+    with pytest.raises(ModelError, match="lacks"):
+        stability_region("ZnO", -3.6, [("ZnS", -2.0)])
+    host = bulk("MgO", "rocksalt", a=4.2)
+    with pytest.raises(InputFormatError, match="no defect total energy"):
+        ChargeState.from_case(DefectCase(name="x", defect=host))
