@@ -337,3 +337,20 @@ def progress_bar(path, enabled: bool, compressed: bool):
     total = None if compressed else os.stat(path).st_size
     return tqdm(total=total, unit="B", unit_scale=True, delay=1.0, leave=False,
                 desc=f"reading {os.path.basename(str(path))}")
+
+
+def next_line(reader: ValueReader) -> str | None:
+    """The next text line after a value block (None at the end of the file); advances ``reader``."""
+    while True:
+        i = reader.pending.find(b"\n")
+        if i >= 0 or not reader._more():
+            break
+    if i < 0:
+        if not reader.pending:
+            return None
+        i = len(reader.pending)
+    raw, reader.pending = reader.pending[:i], reader.pending[i + 1:]
+    reader.line += 1
+    if b"\x00" in raw:
+        raise InputFormatError(reader.path, reader.line - 1, "binary content in a text file")
+    return raw.decode("latin-1").rstrip("\r")
