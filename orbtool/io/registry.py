@@ -164,8 +164,8 @@ FORMATS: tuple[Format, ...] = (
     Format("cp2k-pdos", "pdos", "cp2k_pdos", "read_cp2k_pdos", None, ("*-k*-*.pdos", "*.pdos"),
            _sniff_cp2k_pdos, folder=True),
     Format("procar", "projections", "procar", "read_procar", None, ("*procar*",), _sniff_procar),
-    Format("outcar", "energy", "energy", "read_outcar_energy", None, ("*outcar*",), _sniff_outcar),
-    Format("oszicar", "energy", "energy", "read_oszicar_energy", None, ("*oszicar*",), _sniff_oszicar),
+    Format("outcar", "energy", "structure", "read_outcar_energy", None, ("*outcar*",), _sniff_outcar),
+    Format("oszicar", "energy", "structure", "read_oszicar_energy", None, ("*oszicar*",), _sniff_oszicar),
     Format("poscar", "structure", "structure", "read_poscar", None, ("*poscar*", "*contcar*"), _sniff_poscar),
 )
 
