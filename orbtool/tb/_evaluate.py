@@ -1,0 +1,167 @@
+"""Fast, batched evaluation of a compiled cluster: H(θ), levels, defect level and its character.
+
+Parameter values may be scalars or arrays of shape (B,); geometries come in a batch of G (1 or B).
+Everything is vectorised: one batched ``numpy.linalg.eigh`` per call.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import ModelError
+from .cluster import Levels
+
+_DEGENERATE = 1e-5  # eV: levels closer than this are one multiplet
+
+
+class CompiledCluster:
+    """A :class:`ClusterModel` with its geometry-dependent parts cached (see ``_compiled``)."""
+
+    def __init__(self, model, compiled, vectors):
+        self.model = model
+        self.c = compiled
+        self.vectors = vectors  # (G, natom, 3)
+        self.G = compiled.G
+        el = model.elements
+        self.species = model.species
+        lmax = compiled.lmax
+        no = compiled.no
+        ls = np.array([0, 1, 1, 1, 2, 2, 2, 2, 2])[:no]
+        self.orb_l = np.tile(ls, len(el))
+        self.orb_atom = np.repeat(np.arange(len(el)), no)
+        self.eps0 = np.array([model.onsite[e][ll] for e in el for ll in ls], dtype=float)
+        self.onehot = np.array([[e == s for e in el] for s in self.species], dtype=float)  # (nsp, natom)
+        self._hoff_cache: dict = {}
+        u = vectors / np.linalg.norm(vectors, axis=-1, keepdims=True)  # (G, natom, 3) site -> atom
+        self.hyb_dir = -u  # hybrids point from the atom towards the site
+        self.first = model.shell == 1
+        if model.orbitals == "hybrid":
+            self._hybrid_pieces(lmax)
+
+    # ------------------------------------------------------------------ helpers
+    def _hoff(self, x):
+        key = round(float(x), 12)
+        H = self._hoff_cache.get(key)
+        if H is None:
+            law = self.model.law
+            H = self.c.offdiag(law, q=x) if law.kind == "exp" else self.c.offdiag(law, n=x)
+            if len(self._hoff_cache) > 8:
+                self._hoff_cache.clear()
+            self._hoff_cache[key] = H
+        return H
+
+    def _hybrid_pieces(self, lmax):
+        """Per-pair s–s, s–p and p–p parts of the hybrid coupling for unit radial factor."""
+        A = self.c.blocks[0]  # (G, npair, 4, 4), radial class 0 only (s, p)
+        i, j = self.c.pairs.T
+        hi, hj = self.hyb_dir[:, i], self.hyb_dir[:, j]  # (G, npair, 3)
+        self.B_ss = A[..., 0, 0]
+        self.B_sp = np.einsum("gpb,gpb->gp", A[..., 0, 1:], hj) + np.einsum("gpa,gpa->gp", hi, A[..., 1:, 0])
+        self.B_pp = np.einsum("gpa,gpab,gpb->gp", hi, A[..., 1:, 1:], hj)
+
+    def _param(self, p, name, B):
+        v = np.asarray(p[name], dtype=float)
+        return np.broadcast_to(v.reshape(-1), (B,)) if v.size > 1 else np.full(B, float(v))
+
+    def _batch(self, p):
+        sizes = {np.asarray(v).size for v in p.values()} | {self.G}
+        sizes.discard(1)
+        if len(sizes) > 1:
+            raise ModelError(f"parameter arrays and geometries must share one batch size, got {sorted(sizes)}")
+        return sizes.pop() if sizes else 1
+
+    # ------------------------------------------------------------------ Hamiltonian
+    def hamiltonian(self, p: dict) -> np.ndarray:
+        """H (B, nbasis, nbasis) in eV for parameters ``p`` (scalars or (B,) arrays)."""
+        B = self._batch(p)
+        scale = self._param(p, "coupling_scale", B)
+        xname = "q" if self.model.law.kind == "exp" else "n"
+        x = self._param(p, xname, B)
+        shifts = np.stack([self._param(p, f"shift_{s}", B) for s in self.species], axis=1)  # (B, nsp)
+        atom_shift = shifts @ self.onehot  # (B, natom)
+        if self.model.orbitals == "hybrid":
+            f = np.clip(self._param(p, "s_fraction", B), 0.0, 1.0)
+            return self._hybrid_h(B, scale, x, f, atom_shift)
+        ux, inv = np.unique(x, return_inverse=True)
+        Hoff = np.stack([self._hoff(v) for v in ux])  # (nx, G, n, n)
+        g_idx = np.arange(B) % self.G if self.G > 1 else np.zeros(B, dtype=int)
+        H = Hoff[inv, g_idx] * scale[:, None, None]
+        diag = self.eps0[None] + atom_shift[:, self.orb_atom]
+        H[:, np.arange(H.shape[1]), np.arange(H.shape[1])] += diag
+        return H
+
+    def _hybrid_h(self, B, scale, x, f, atom_shift):
+        law = self.model.law
+        d = self.c.pair_distance  # (G, npair)
+        g = law.radial(d, q=x[:, None]) if law.kind == "exp" else law.radial(d, n=x[:, None])  # (B, npair)
+        beta = scale[:, None] * g * (f[:, None] * self.B_ss + np.sqrt(f * (1 - f))[:, None] * self.B_sp
+                                     + (1 - f)[:, None] * self.B_pp)
+        natom = len(self.model.elements)
+        eps_s = np.array([self.model.onsite[e][0] for e in self.model.elements])
+        eps_p = np.array([self.model.onsite[e][1] for e in self.model.elements])
+        H = np.zeros((B, natom, natom))
+        i, j = self.c.pairs.T
+        H[:, i, j] = beta
+        H[:, j, i] = beta
+        k = np.arange(natom)
+        H[:, k, k] = f[:, None] * eps_s + (1 - f)[:, None] * eps_p + atom_shift
+        return H
+
+    # ------------------------------------------------------------------ levels
+    def solve(self, p: dict) -> Levels:
+        """Diagonalise and pick the defect level (see :class:`ClusterModel` for the rule)."""
+        H = self.hamiltonian(p)
+        E, V = np.linalg.eigh(H)
+        B, m = E.shape
+        W = V ** 2  # (B, nbasis, nlevel)
+        model = self.model
+        if model.orbitals == "hybrid":
+            dang = np.ones((B, m))
+        else:
+            dang = self._dangling(V, p, B)
+        lev = model.level
+        if isinstance(lev, (int, np.integer)):
+            if not -m <= lev < m:
+                raise ModelError(f"level {lev} out of range: the cluster has {m} levels")
+            idx = np.full(B, int(lev) % m)
+        elif lev in ("auto", "homo") and model.orbitals == "hybrid":
+            ne = model.electrons if model.electrons is not None else 0.0
+            idx = np.full(B, int(np.clip(np.ceil(ne / 2.0) - 1, 0, m - 1)))
+        elif lev in ("auto", "dangling"):
+            idx = np.argmax(dang, axis=1)
+        else:
+            raise ModelError(f"level must be 'auto', 'homo' (hybrid), 'dangling' or an integer, got {lev!r}")
+        level = E[np.arange(B), idx]
+        multiplet = (np.abs(E - level[:, None]) < _DEGENERATE).astype(float)  # (B, m)
+        deg = multiplet.sum(1)
+        w_orb = np.einsum("bnm,bm->bn", W, multiplet) / deg[:, None]  # (B, nbasis)
+        if model.orbitals == "hybrid":
+            f = np.clip(self._param(p, "s_fraction", B), 0, 1)
+            s_w, p_w, d_w = f, 1 - f, np.zeros(B)
+            atom_w = w_orb
+        else:
+            s_w = w_orb[:, self.orb_l == 0].sum(1)
+            p_w = w_orb[:, self.orb_l == 1].sum(1)
+            d_w = w_orb[:, self.orb_l == 2].sum(1)
+            atom_w = np.zeros((B, len(model.elements)))
+            np.add.at(atom_w.T, self.orb_atom, w_orb.T)
+        shell1 = atom_w[:, self.first].sum(1)
+        dang_w = (dang * multiplet).sum(1) / deg
+        return Levels(E, V, idx, level, s_w, p_w, d_w, shell1, dang_w, atom_w)
+
+    def _dangling(self, V, p, B):
+        """Weight of each level on the dangling hybrids of the first-shell atoms (s, p part)."""
+        f = float(np.clip(self.model.s_fraction, 0, 1))
+        no = self.c.no
+        natom = len(self.model.elements)
+        nfirst = int(self.first.sum())
+        coef = np.zeros((self.G, natom, no))
+        coef[:, :, 0] = np.sqrt(f)
+        if no > 1:
+            coef[:, :, 1:4] = np.sqrt(1 - f) * self.hyb_dir
+        coef = coef[:, :nfirst].reshape(self.G, nfirst * no)
+        Vf = V[:, : nfirst * no].reshape(B, nfirst, no, -1)
+        c = coef.reshape(self.G, nfirst, no)
+        c = np.broadcast_to(c, (B, nfirst, no)) if self.G == 1 else c
+        proj = np.einsum("bao,baom->bam", c, Vf)
+        return (proj ** 2).sum(1)

@@ -1,0 +1,177 @@
+"""The inverse question and the plain-language account of a fitted model.
+
+:func:`smallest_change_to_shallow` scans, as batched diagonalisations, (a) the amplitude of each
+distortion mode of the first shell (Å, unit-norm patterns: amplitude a moves the shell by a in the
+3N-dimensional displacement space), (b) a rigid shift of the first-shell on-site energies (eV) and
+(c) swaps of the first-shell element for every element of the same term-value table, and reports the
+smallest change that brings the defect level within ``within`` eV of a band edge, with its 1σ from the
+fit covariance (σ_change = σ_level / |∂level/∂change|, linear propagation).
+
+:func:`explain` turns the numbers into sentences: the level and its verdict, which orbitals carry it,
+how strong the dominant coupling is, and how far each knob moves it per unit change.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import FitError
+from .elements import available_elements, term_values
+from .whatif import _case, _compiled, _gradient, predict, scan
+
+__all__ = ["ShallowChange", "smallest_change_to_shallow", "explain"]
+
+
+@dataclass(frozen=True)
+class ShallowChange:
+    """One way of making the level shallow.
+
+    knob : str  e.g. "mode:breathing", "onsite_shift", "swap:Ga->Al".
+    change : float  amplitude (Å), shift (eV) or, for swaps, the hybrid on-site change (eV).
+    unit : str; sigma : float (same unit); level_after : float (eV above VBM).
+    reached : bool  whether the condition is met inside the scanned range; note : str.
+    """
+
+    knob: str
+    change: float
+    unit: str
+    sigma: float
+    level_after: float
+    reached: bool
+    note: str
+
+
+def _condition(level, gap, within, edge):
+    near_v = level <= within
+    near_c = (gap - level <= within) if gap is not None else np.zeros_like(level, dtype=bool)
+    return {"vbm": near_v, "cbm": near_c}.get(edge, near_v | near_c)
+
+
+def _smallest(grid, levels, ok):
+    """Smallest |x| on the grid where ok flips on (linear interpolation of the crossing)."""
+    if not ok.any():
+        return None
+    order = np.argsort(np.abs(grid))
+    for k in order:
+        if ok[k]:
+            return float(grid[k])
+    return None
+
+
+def smallest_change_to_shallow(fit, within: float = 0.1, edge: str = "nearest", case=None,
+                               max_amplitude: float = 0.5, max_shift: float = 5.0, n_grid: int = 801,
+                               swaps: bool = True) -> list:
+    """Smallest structural or chemical change that makes the level shallow (list of ShallowChange).
+
+    Parameters
+    ----------
+    within : float  distance (eV) from the band edge counted as shallow.
+    edge : {"nearest", "vbm", "cbm"}
+    max_amplitude : float  largest mode amplitude scanned (Å).
+    max_shift : float  largest first-shell on-site shift scanned (eV).
+    """
+    if edge not in ("nearest", "vbm", "cbm"):
+        raise FitError(f"edge must be 'nearest', 'vbm' or 'cbm', got {edge!r}")
+    case = _case(fit, case)
+    model = fit.problem.models[case]
+    gap = fit.problem.by_case[case][0].gap
+    if edge == "cbm" and gap is None:
+        raise FitError("the case has no band gap recorded: cannot aim at the CBM")
+    base = predict(fit, case=case, labels=False)
+    first = model.shell == 1
+    out = []
+    amps = np.linspace(-max_amplitude, max_amplitude, n_grid)
+    for name, pattern in model.modes.items():
+        vec = np.repeat(model.vectors[None], n_grid, axis=0)
+        vec[:, first] += amps[:, None, None] * pattern[None]
+        lev = scan(fit, case=case, geometries=vec)
+        out.append(_entry(fit, case, f"mode:{name}", "Å", amps, lev, gap, within, edge, base.sigma))
+    shifts = np.linspace(-max_shift, max_shift, n_grid)
+    lev = scan(fit, case=case, onsite_shift=shifts)
+    out.append(_entry(fit, case, "onsite_shift", "eV", shifts, lev, gap, within, edge, base.sigma))
+    if swaps:
+        out.extend(_swaps(fit, case, model, gap, within, edge))
+    return out
+
+
+def _entry(fit, case, knob, unit, grid, lev, gap, within, edge, sigma_level):
+    ok = _condition(lev, gap, within, edge)
+    x = _smallest(grid, lev, ok)
+    if x is None:
+        k = int(np.argmin(np.abs(lev - (0 if edge == "vbm" else (gap if edge == "cbm" else lev.min())))))
+        return ShallowChange(knob, float("nan"), unit, float("nan"), float(lev[k]), False,
+                             f"no change within ±{abs(grid).max():g} {unit} reaches the band edge "
+                             f"(level spans {lev.min():.3f}…{lev.max():.3f} eV above the VBM)")
+    k = int(np.argmin(np.abs(grid - x)))
+    slope = np.gradient(lev, grid)[k]
+    sig = sigma_level / abs(slope) if slope != 0 else float("inf")
+    return ShallowChange(knob, x, unit, float(sig), float(lev[k]), True,
+                         f"level moves {slope:+.3f} eV per {unit} here")
+
+
+def _swaps(fit, case, model, gap, within, edge):
+    first_species = sorted({model.elements[i] for i in np.flatnonzero(model.shell == 1)})
+    out = []
+    for old in first_species:
+        cands = []
+        for new in available_elements(model.term_source):
+            if new == old:
+                continue
+            tv = term_values(new, model.term_source)
+            if tv.p is None:
+                continue
+            p = predict(fit, case=case, swap={old: new}, labels=False)
+            ok = bool(_condition(np.array([p.level]), gap, within, edge)[0])
+            dist = min(p.level, (gap - p.level) if gap is not None else np.inf)
+            cands.append((not ok, abs(dist - within) if not ok else 0.0, new, p, tv))
+        cands.sort(key=lambda c: (c[0], c[1]))
+        for miss, _, new, p, tv in cands[:3]:
+            ref = term_values(old, model.term_source) if old in available_elements(model.term_source) else None
+            d_eps = (tv.s - ref.s, tv.p - ref.p) if ref is not None else (np.nan, np.nan)
+            out.append(ShallowChange(f"swap:{old}->{new}", float(d_eps[1]), "eV", p.sigma, p.level, not miss,
+                                     f"Δε_s {d_eps[0]:+.2f} eV, Δε_p {d_eps[1]:+.2f} eV; {p.verdict}"))
+    return out
+
+
+def explain(fit, case=None) -> str:
+    """Plain-language account of the mechanism, from the fitted numbers."""
+    case = _case(fit, case)
+    model = fit.problem.models[case]
+    p = predict(fit, case=case)
+    ch = p.character
+    lines = [f"The defect level of {case} sits {p.level:.2f} ± {p.sigma:.2f} eV above the VBM"
+             + (f" ({p.below_cbm:.2f} eV below the CBM)" if np.isfinite(p.cbm) else "") + f": {p.verdict}."]
+    orb = ", ".join(f"{100 * ch[k]:.0f}% {k}" for k in ("s", "p", "d") if ch[k] > 0.005)
+    who = "/".join(sorted({model.elements[i] for i in np.flatnonzero(model.shell == 1)}))
+    lines.append(f"It is built from the dangling orbitals of the {int((model.shell == 1).sum())} {who} neighbours "
+                 f"({orb}; {100 * ch['first_shell']:.0f}% on the first shell), symmetry {ch['label']} "
+                 f"in {model.point_group}.")
+    cc = _compiled(fit, case, None, None)
+    params = fit.problem.case_params(case, fit.values[None])
+    params.pop("vbm")
+    H = cc.hamiltonian({**cc.model.defaults(), **params})[0]
+    off = H - np.diag(np.diag(H))
+    i, j = np.unravel_index(np.argmax(np.abs(off)), off.shape)
+    labels = model.basis_labels()
+    lines.append(f"The strongest coupling is {off[i, j]:+.2f} eV between {labels[i]} and {labels[j]} "
+                 f"({model.law.describe()}, coupling scale {fit.params.get('coupling_scale', 1.0):.2f}).")
+    first = model.shell == 1
+    eps = 0.01
+    vec = np.repeat(model.vectors[None], 2, axis=0)
+    vec[1, first] *= 1 + eps
+    d_breathe = np.diff(scan(fit, case=case, geometries=vec))[0] / (100 * eps)
+    d_shift = float(np.diff(scan(fit, case=case, onsite_shift=np.array([0.0, 0.1])))[0] / 0.1)
+    d_scale = float(np.diff(scan(fit, case=case, coupling_scale=np.array([1.0, 1.1])))[0])
+    lines.append(f"Knobs: +1% outward breathing of the first shell moves the level {d_breathe:+.3f} eV; "
+                 f"raising the neighbours' orbital energies by 1 eV moves it {d_shift:+.2f} eV; "
+                 f"10% stronger couplings move it {d_scale:+.3f} eV.")
+    g = _gradient(fit, case, cc)
+    if len(g):
+        contrib = np.abs(g) * fit.sigma
+        k = int(np.argmax(contrib))
+        lines.append(f"The largest source of uncertainty is {fit.free[k]} (±{contrib[k]:.3f} eV on the level).")
+    if fit.at_bounds:
+        lines.append(f"Caution: {', '.join(fit.at_bounds)} stopped at a bound of its range.")
+    return "\n".join(lines)

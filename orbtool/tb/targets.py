@@ -1,0 +1,121 @@
+"""Fit targets: what the DFT in-gap state analysis says about one defect level."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import FitError
+
+__all__ = ["Target", "targets_from_case"]
+
+
+@dataclass(frozen=True, eq=False)
+class Target:
+    """Observed properties of one defect level of one case, each with an uncertainty.
+
+    Attributes
+    ----------
+    case : str
+        Case name (per-case parameters are keyed by it).
+    above_vbm : float
+        Level energy above the valence-band maximum (eV).
+    sigma_level : float
+        Its uncertainty (eV).
+    s_fraction : float or None
+        s/(s+p) character of the state (dimensionless), compared with the model's.
+    sigma_s : float
+    shell1 : float or None
+        Fraction of the state on the first shell, normalised over shells 1+2 (full clusters only).
+    sigma_shell : float
+    gap : float or None
+        Band gap of the case (eV), for deep/shallow verdicts.
+    weight : float
+        Multiplies every residual of this target (1 = as given).
+    site : VacancySite-like or None
+        The site of this case (the fit builds the case's cluster from it); None = the model's own site.
+    labels : dict
+        Free labels (cation, anion, ...).
+    """
+
+    case: str
+    above_vbm: float
+    sigma_level: float = 0.05
+    s_fraction: float | None = None
+    sigma_s: float = 0.05
+    shell1: float | None = None
+    sigma_shell: float = 0.05
+    gap: float | None = None
+    weight: float = 1.0
+    site: object = None
+    labels: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        for name in ("above_vbm", "sigma_level", "sigma_s", "sigma_shell", "weight"):
+            v = getattr(self, name)
+            if not np.isfinite(v):
+                raise FitError(f"target {self.case!r}: {name} must be finite, got {v!r}")
+        for name in ("sigma_level", "sigma_s", "sigma_shell"):
+            if getattr(self, name) <= 0:
+                raise FitError(f"target {self.case!r}: {name} must be positive")
+        if self.weight < 0:
+            raise FitError(f"target {self.case!r}: weight must be non-negative")
+        for name in ("s_fraction", "shell1", "gap"):
+            v = getattr(self, name)
+            if v is not None and not np.isfinite(v):
+                raise FitError(f"target {self.case!r}: {name} must be finite or None, got {v!r}")
+
+
+def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_character, labels):
+    above = float(state.above_vbm)
+    s_frac = shell1 = None
+    ow = getattr(state, "orbital_weights", None) or {}
+    if use_character and ("s" in ow and "p" in ow) and (ow["s"] + ow["p"]) > 0:
+        s_frac = float(ow["s"] / (ow["s"] + ow["p"]))
+    sf = getattr(state, "shell_fractions", None) or {}
+    if use_character and sf.get(1) is not None and sf.get(2) is not None and (sf[1] + sf[2]) > 0:
+        shell1 = float(sf[1] / (sf[1] + sf[2]))
+    gap = None
+    edges = getattr(state, "edges", None)
+    if edges is not None and getattr(edges, "gap", None) is not None:
+        gap = float(edges.gap)
+    elif getattr(state, "below_cbm", None) is not None:
+        gap = above + float(state.below_cbm)
+    return Target(case=name, above_vbm=above, sigma_level=sigma_level, s_fraction=s_frac, sigma_s=sigma_s,
+                  shell1=shell1, sigma_shell=sigma_shell, gap=gap, site=site, labels=dict(labels))
+
+
+def targets_from_case(case, site=None, state=None, *, sigma_level: float = 0.05, sigma_s: float = 0.05,
+                      sigma_shell: float = 0.05, use_character: bool = True) -> list[Target]:
+    """Targets for one :class:`~orbtool.case.DefectCase` from its in-gap state analysis.
+
+    Parameters
+    ----------
+    case : DefectCase
+    site : VacancySite, optional
+        Located with ``orbtool.analysis.locate_vacancy`` when not given.
+    state : DefectState or list of them, optional
+        From ``orbtool.analysis.in_gap_states`` when not given (the first in-gap state).
+    sigma_level, sigma_s, sigma_shell : float
+        Uncertainties assigned to the level (eV) and to the character fractions.
+    use_character : bool
+        Also fit the s/(s+p) character and the first-shell fraction when available.
+    """
+    if site is None:
+        from ..analysis import locate_vacancy  # lazy: tb depends on analysis only here
+
+        if getattr(case, "host", None) is None:
+            raise FitError(f"case {case.name!r} has no host structure: pass site=... explicitly")
+        site = locate_vacancy(case.host, case.defect)
+    if state is None:
+        from ..analysis import in_gap_states
+
+        states = in_gap_states(case, site=site)
+        if not states:
+            raise FitError(f"case {case.name!r}: no in-gap state found; pass state=... explicitly")
+        state = states[0]
+    states = state if isinstance(state, (list, tuple)) else [state]
+    labels = getattr(case, "labels", {}) or {}
+    return [_state_targets(case.name, s, site, sigma_level, sigma_s, sigma_shell, use_character, labels)
+            for s in states]

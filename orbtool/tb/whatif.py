@@ -1,0 +1,195 @@
+"""What-if engine on a fitted cluster model: predictions with uncertainty bands and batched scans.
+
+Knobs (all relative to the fitted model of one case):
+* ``geometry`` — new ase.Atoms (cluster vectors by minimum image about the site) or vectors (natom, 3);
+* ``swap`` — {"Sn": "Ge"}: on-site energies of the old element replaced by the new element's term
+  values from the same table (the fitted shift of the old element is kept: it absorbs the table's
+  systematic error); bond lengths are those of ``geometry`` (no relaxation is implied);
+* ``coupling_scale`` — multiplies every coupling; ``onsite_shift`` — eV added to the on-site energies
+  of the first-shell atoms (those carrying the dangling orbitals).
+
+Levels are given above the VBM (the fitted ``vbm`` is subtracted). Uncertainty: linear propagation
+σ² = g C gᵀ with g = ∂level/∂θ by finite differences, and optionally Monte-Carlo sampling of θ from
+N(θ̂, C) clipped to the bounds (both evaluated as one batched ``eigh``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from ..errors import FitError, ModelError
+from .elements import term_values
+from .symmetry import class_columns, label_levels
+
+__all__ = ["Prediction", "predict", "scan"]
+
+
+@dataclass(frozen=True, eq=False)
+class Prediction:
+    """The defect level predicted for one set of knobs.
+
+    Attributes
+    ----------
+    level : float  defect level above the VBM (eV); ``sigma`` its 1σ (eV).
+    levels : ndarray  every cluster level above the VBM (eV); ``labels`` their irrep labels.
+    vbm, cbm : float  band edges on the same scale (vbm = 0; cbm = gap of the case or nan).
+    above_vbm, below_cbm : float (eV); verdict : str.
+    band : (float, float) or None  2.5–97.5 % range from parameter sampling (when samples > 0).
+    character : dict  s/p/d weights, first-shell and dangling weights of the defect level.
+    """
+
+    level: float
+    sigma: float
+    levels: np.ndarray
+    labels: list
+    vbm: float
+    cbm: float
+    above_vbm: float
+    below_cbm: float
+    verdict: str
+    band: tuple | None = None
+    character: dict | None = None
+
+
+def _case(fit, case):
+    cases = list(fit.problem.by_case)
+    if case is None:
+        return cases[0]
+    if isinstance(case, (int, np.integer)):
+        return cases[int(case)]
+    name = getattr(case, "name", case)
+    if name not in cases:
+        raise FitError(f"unknown case {name!r}; the fit has {cases}")
+    return name
+
+
+def _compiled(fit, case, geometry, swap):
+    model = fit.problem.models[case]
+    key = (case, tuple(sorted((swap or {}).items())))
+    if swap:
+        bad = [el for el in swap if el not in model.species]
+        if bad:
+            raise ModelError(f"swap names {bad} but the cluster holds {list(model.species)}")
+        onsite = dict(model.onsite)
+        for old, new in swap.items():
+            tv = term_values(new, model.term_source)
+            onsite[old] = (tv.s, np.nan if tv.p is None else tv.p, np.nan if tv.d is None else tv.d)
+        model = replace(model, onsite=onsite)
+    if geometry is None:
+        cache = fit._cache.setdefault("compiled", {})
+        if key not in cache:
+            cache[key] = model.compile()
+        return cache[key]
+    return model.compile(geometry)
+
+
+def _batch_levels(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
+    """(B,) defect level above the VBM and the Levels object for parameter batch X (B, nparam)."""
+    prob = fit.problem
+    p = prob.case_params(case, X)
+    vbm = p.pop("vbm")
+    full = cc.model.defaults()
+    full.update(p)
+    full["coupling_scale"] = full["coupling_scale"] * np.asarray(coupling_scale)
+    first_species = {cc.model.elements[i] for i in np.flatnonzero(cc.first)}
+    for el in first_species:
+        full[f"shift_{el}"] = full[f"shift_{el}"] + np.asarray(onsite_shift)
+    lv = cc.solve(full)
+    return lv.level - vbm, lv, vbm
+
+
+def _gradient(fit, case, cc, **knobs):
+    free_idx = np.array([fit.names.index(n) for n in fit.free], dtype=int)
+    x = fit.values
+    h = 1e-5 * np.maximum(1.0, np.abs(x[free_idx]))
+    X = np.repeat(x[None], len(free_idx) + 1, axis=0)
+    X[np.arange(1, len(free_idx) + 1), free_idx] += h
+    lev, _, _ = _batch_levels(fit, case, cc, X, **knobs)
+    return (lev[1:] - lev[0]) / h
+
+
+def verdict_for(level, sigma, gap, within):
+    """'deep' / 'shallow ...' / 'resonant ...' with a borderline note (eV)."""
+    if level < 0:
+        return "resonant with the valence band"
+    if gap is not None and np.isfinite(gap) and level > gap:
+        return "resonant with the conduction band"
+    d_v = level
+    d_c = gap - level if gap is not None and np.isfinite(gap) else np.inf
+    near = min(d_v, d_c)
+    edge = "VBM" if d_v <= d_c else "CBM"
+    out = f"shallow (within {within:g} eV of the {edge})" if near <= within else "deep"
+    if sigma > 0 and abs(near - within) < 2 * sigma:
+        out += " — borderline within 2σ"
+    return out
+
+
+def predict(fit, geometry=None, swap=None, coupling_scale=1.0, onsite_shift=0.0, case=None, *, samples: int = 0,
+            labels: bool = True, shallow_within: float = 0.1, seed: int = 0) -> Prediction:
+    """Defect level for the given knobs with its uncertainty (see module docstring)."""
+    case = _case(fit, case)
+    cc = _compiled(fit, case, geometry, swap)
+    knobs = dict(coupling_scale=coupling_scale, onsite_shift=onsite_shift)
+    lev, lv, vbm = _batch_levels(fit, case, cc, fit.values[None], **knobs)
+    level = float(lev[0])
+    g = _gradient(fit, case, cc, **knobs)
+    sigma = float(np.sqrt(max(g @ fit.covariance @ g, 0.0))) if len(g) else 0.0
+    band = None
+    if samples:
+        band = _sampled_band(fit, case, cc, samples, seed, knobs)
+    gap = fit.problem.by_case[case][0].gap
+    cbm = float(gap) if gap is not None else float("nan")
+    E = lv.energies[0] - float(np.asarray(vbm).ravel()[0])
+    lab = _labels(fit, cc, lv) if labels else ["?"] * len(E)
+    char = {"s": float(lv.s_weight[0]), "p": float(lv.p_weight[0]), "d": float(lv.d_weight[0]),
+            "first_shell": float(lv.shell1_weight[0]), "dangling": float(lv.dangling_weight[0]),
+            "label": lab[int(lv.index[0])]}
+    return Prediction(level=level, sigma=sigma, levels=E, labels=lab, vbm=0.0, cbm=cbm, above_vbm=level,
+                      below_cbm=cbm - level, verdict=verdict_for(level, sigma, gap, shallow_within), band=band,
+                      character=char)
+
+
+def _sampled_band(fit, case, cc, samples, seed, knobs):
+    free_idx = np.array([fit.names.index(n) for n in fit.free], dtype=int)
+    rng = np.random.default_rng(seed)
+    draw = rng.multivariate_normal(fit.values[free_idx], fit.covariance, size=int(samples), method="eigh")
+    lo = np.array([fit.bounds[n][0] for n in fit.free])
+    hi = np.array([fit.bounds[n][1] for n in fit.free])
+    X = np.repeat(fit.values[None], int(samples), axis=0)
+    X[:, free_idx] = np.clip(draw, lo, hi)
+    lev, _, _ = _batch_levels(fit, case, cc, X, **knobs)
+    return tuple(float(v) for v in np.percentile(lev, [2.5, 97.5]))
+
+
+def _labels(fit, cc, lv):
+    model = cc.model
+    key = ("classes", id(model.operations), model.point_group)
+    cache = fit._cache
+    if key not in cache:
+        try:
+            cache[key] = class_columns(model.point_group, model.operations, cc.vectors[0][cc.first])
+        except ValueError:
+            cache[key] = None
+    if cache[key] is None:
+        return ["?"] * lv.energies.shape[1]
+    return label_levels(lv.energies[0], lv.vectors[0], cc.vectors[0], model.point_group, model.operations,
+                        cc.c.lmax, model.orbitals == "hybrid", classes_cols=cache[key])
+
+
+def scan(fit, case=None, geometries=None, swap=None, **arrays) -> np.ndarray:
+    """Defect level above the VBM (eV) over a batch: ``geometries`` (B, natom, 3) vectors and/or
+    parameter arrays (B,) given by base name (``coupling_scale`` and ``onsite_shift`` act as knobs)."""
+    case = _case(fit, case)
+    cc = _compiled(fit, case, geometries, swap)
+    knobs = {k: np.asarray(arrays.pop(k)) for k in ("coupling_scale", "onsite_shift") if k in arrays}
+    B = max([cc.G] + [np.asarray(v).size for v in list(arrays.values()) + list(knobs.values())])
+    X = np.repeat(fit.values[None], B, axis=0)
+    for name, v in arrays.items():
+        cols = [k for k, n in enumerate(fit.names) if n == name or n == f"{name}@{case}"]
+        if not cols:
+            raise FitError(f"unknown parameter {name!r}")
+        X[:, cols[0]] = v
+    lev, _, _ = _batch_levels(fit, case, cc, X, **knobs)
+    return lev
