@@ -2,15 +2,20 @@
 
 One module per format family, a registry (:mod:`orbtool.io.registry`) that
 maps format names to readers with content sniffing, a binary cache for
-grids, and the assemblers :func:`load_case` and :func:`load_family`.
-Units are converted here, once: Å, eV, electrons/Å³ downstream.
+grids, and the assemblers :func:`load_case` (run folders → DefectCase) and
+:func:`load_family` (TOML manifest → Family). Units are converted here,
+once: Å, eV, electrons/Å³ downstream.
 """
 
 from __future__ import annotations
 
 from .api import read_grid, read_grids, read_pdos, read_projections, write_grid, write_pdos, write_projections
-from .cache import clear_cache
+from .assemble import load_case
+from .cache import cache_dir, clear_cache
+from .manifest import load_family
 from .registry import FORMATS
+from .structure import read_energy, read_structure
 
-__all__ = ["read_grid", "read_grids", "read_pdos", "read_projections", "write_grid", "write_pdos",
-           "write_projections", "clear_cache", "FORMATS"]
+__all__ = ["read_grid", "read_grids", "read_pdos", "read_projections", "read_structure", "read_energy",
+           "write_grid", "write_pdos", "write_projections", "load_case", "load_family", "clear_cache",
+           "cache_dir", "FORMATS"]

@@ -1,0 +1,192 @@
+"""A chemical family from a TOML manifest (schema in ``docs/manifest.md``).
+
+Every problem in a manifest is collected and reported at once, each with
+its line number, so a user fixes the file in one pass.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from pathlib import Path
+
+from ..case import Family
+from ..errors import InputFormatError
+
+__all__ = ["load_family", "check_manifest", "LABEL_KEYS"]
+
+#: free labels a case may carry directly (others go under ``[case.labels]``)
+LABEL_KEYS = ("motif", "cation", "anion", "vacancy", "defect", "variant")
+_FAMILY_KEYS = {"name", "description"}
+_HOST_KEYS = {"name", "path", "description"}
+_CASE_KEYS = {"name", "host", "path", "charge", "labels", "description", *LABEL_KEYS}
+_TOP_KEYS = {"family", "references", "host", "case"}
+
+_HEADER = re.compile(r"^\s*(\[\[?)\s*([A-Za-z0-9_.\-]+)\s*\]\]?")
+_KEY = re.compile(r'^\s*("?)([A-Za-z0-9_\-]+)\1\s*=')
+
+
+def _line_map(text: str):
+    """For each table instance, the line of its header and of each key.
+
+    Returns ``{(table, index): {"": header_line, key: line}}`` where index counts array tables.
+    """
+    out = {("", 0): {"": 1}}
+    counts: dict[str, int] = {}
+    cur = ("", 0)
+    for i, line in enumerate(text.splitlines(), start=1):
+        m = _HEADER.match(line)
+        if m:
+            name = m.group(2)
+            if m.group(1) == "[[":
+                counts[name] = counts.get(name, -1) + 1
+                cur = (name, counts[name])
+            elif "." in name and name.split(".")[0] in counts:
+                cur = (name.split(".")[0], counts[name.split(".")[0]])  # e.g. [case.labels]
+                out.setdefault(cur, {"": i})
+                continue
+            else:
+                cur = (name, 0)
+            out.setdefault(cur, {"": i})
+            continue
+        k = _KEY.match(line)
+        if k:
+            out.setdefault(cur, {"": i}).setdefault(k.group(2), i)
+    return out
+
+
+def check_manifest(path):
+    """Parse and validate a manifest; returns (data, problems, lines) where problems is a list
+    of (line, message)."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputFormatError(path, None, "manifest does not exist") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputFormatError(path, None, f"cannot read manifest ({exc})") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        m = re.search(r"line (\d+)", str(exc))
+        raise InputFormatError(path, int(m.group(1)) if m else None, f"not valid TOML ({exc})") from None
+    lines = _line_map(text)
+    problems: list[tuple[int | None, str]] = []
+    base = path.parent
+
+    def at(table, idx, key=""):
+        t = lines.get((table, idx), {})
+        return t.get(key, t.get(""))
+
+    for k in data:
+        if k not in _TOP_KEYS:
+            problems.append((at(k, 0) or at("", 0, k), f"unknown top-level table or key {k!r} "
+                             f"(allowed: {', '.join(sorted(_TOP_KEYS))})"))
+    fam = data.get("family", {})
+    if not isinstance(fam, dict):
+        problems.append((at("", 0, "family"), "[family] must be a table"))
+        fam = {}
+    for k in fam:
+        if k not in _FAMILY_KEYS:
+            problems.append((at("family", 0, k), f"unknown key {k!r} in [family] (allowed: name, description)"))
+    if "references" in data and not isinstance(data["references"], dict):
+        problems.append((at("", 0, "references"), "[references] must be a table"))
+    hosts = data.get("host", [])
+    cases = data.get("case", [])
+    if not isinstance(hosts, list) or not isinstance(cases, list):
+        problems.append((None, "use [[host]] and [[case]] (arrays of tables)"))
+        hosts, cases = (hosts if isinstance(hosts, list) else []), (cases if isinstance(cases, list) else [])
+    host_names: dict[str, int] = {}
+    for i, h in enumerate(hosts):
+        for k in h:
+            if k not in _HOST_KEYS:
+                problems.append((at("host", i, k), f"unknown key {k!r} in [[host]] #{i + 1} "
+                                 f"(allowed: {', '.join(sorted(_HOST_KEYS))})"))
+        _required(h, ("name", "path"), "host", i, at, problems)
+        name = h.get("name")
+        if isinstance(name, str):
+            if name in host_names:
+                problems.append((at("host", i, "name"), f"duplicate host name {name!r} "
+                                 f"(first at line {host_names[name]})"))
+            else:
+                host_names[name] = at("host", i, "name")
+        _check_path(h.get("path"), base, "host", i, at, problems)
+    case_names: dict[str, int] = {}
+    if not cases:
+        problems.append((None, "no [[case]] tables"))
+    for i, c in enumerate(cases):
+        for k in c:
+            if k not in _CASE_KEYS:
+                problems.append((at("case", i, k), f"unknown key {k!r} in [[case]] #{i + 1} (allowed: "
+                                 f"{', '.join(sorted(_CASE_KEYS))}; put other labels under [case.labels])"))
+        _required(c, ("name", "path"), "case", i, at, problems)
+        name = c.get("name")
+        if isinstance(name, str):
+            if name in case_names:
+                problems.append((at("case", i, "name"), f"duplicate case name {name!r} "
+                                 f"(first at line {case_names[name]})"))
+            else:
+                case_names[name] = at("case", i, "name")
+        if "host" in c and c["host"] not in host_names:
+            problems.append((at("case", i, "host"), f"case {name!r} names host {c['host']!r}, which no [[host]] "
+                             f"defines (hosts: {', '.join(host_names) or 'none'})"))
+        if "charge" in c and (not isinstance(c["charge"], int) or isinstance(c["charge"], bool)):
+            problems.append((at("case", i, "charge"), f"charge must be an integer, got {c['charge']!r}"))
+        for k in LABEL_KEYS:
+            if k in c and not isinstance(c[k], (str, int, float)):
+                problems.append((at("case", i, k), f"label {k!r} must be a string or number"))
+        if "labels" in c and not isinstance(c["labels"], dict):
+            problems.append((at("case", i, "labels"), "labels must be a table"))
+        _check_path(c.get("path"), base, "case", i, at, problems)
+    return data, problems, lines
+
+
+def _required(tab, keys, kind, i, at, problems):
+    for k in keys:
+        if k not in tab:
+            problems.append((at(kind, i), f"[[{kind}]] #{i + 1} lacks the required key {k!r}"))
+        elif not isinstance(tab[k], str) or not tab[k]:
+            problems.append((at(kind, i, k), f"{k!r} of [[{kind}]] #{i + 1} must be a non-empty string"))
+
+
+def _check_path(value, base, kind, i, at, problems):
+    if isinstance(value, str) and value:
+        p = (base / value)
+        if not p.is_dir():
+            what = "is not a folder" if p.exists() else "does not exist"
+            problems.append((at(kind, i, "path"), f"{kind} path {value!r} {what} (relative to the manifest)"))
+
+
+def load_family(manifest_path, *, grids: bool = True) -> Family:
+    """Read a family manifest (TOML, see docs/manifest.md) and load every case.
+
+    Paths are relative to the manifest. All schema problems (unknown keys, missing files,
+    duplicate names, unknown hosts, wrong types) are reported together in one
+    :class:`InputFormatError`, each with its line number. Each host folder is read once.
+    """
+    from .assemble import load_case, scan_run
+
+    path = Path(manifest_path)
+    data, problems, lines = check_manifest(path)
+    if problems:
+        problems.sort(key=lambda p: (p[0] is None, p[0] or 0))
+        body = "\n".join(f"  - line {ln}: {msg}" if ln else f"  - {msg}" for ln, msg in problems)
+        raise InputFormatError(path, problems[0][0], f"{len(problems)} problem(s) in the manifest:\n{body}")
+    base = path.parent
+    host_runs = {}
+    for h in data.get("host", []):
+        host_runs[h["name"]] = scan_run(base / h["path"], grids=grids)
+    cases = []
+    for c in data.get("case", []):
+        labels = {k: c[k] for k in LABEL_KEYS if k in c}
+        labels.update(c.get("labels", {}))
+        hr = host_runs.get(c.get("host"))
+        case = load_case(base / c["path"], charge=int(c.get("charge", 0)), name=c["name"], labels=labels,
+                         grids=grids, _host_run=hr)
+        if hr is not None:
+            case = case.replace(provenance=case.provenance + (f"host {c['host']!r} from the manifest",))
+        cases.append(case)
+    fam = data.get("family", {})
+    return Family(cases=tuple(cases), name=fam.get("name", path.stem), references=dict(data.get("references", {})),
+                  source=str(path), meta={"description": fam.get("description", ""),
+                                          "hosts": {h["name"]: h["path"] for h in data.get("host", [])}})
