@@ -1,0 +1,49 @@
+"""Analysis of defect cells: vacancy geometry, band edges and in-gap states,
+density partition, PDOS moments and recursion.
+
+Names are imported on first use so that ``import orbtool.analysis`` is cheap.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+_LAZY = {
+    # geometry
+    "locate_vacancy": "geometry", "VacancySite": "geometry", "Neighbour": "geometry",
+    # states
+    "band_edges": "states", "in_gap_states": "states", "BandEdges": "states", "DefectState": "states",
+    "align": "alignment", "Alignment": "alignment",
+    # density
+    "partition_spheres": "density", "partition_voronoi": "density", "localisation": "density",
+    # moments and recursion
+    "pdos_moments": "moments", "compare_moments": "moments", "recursion_coefficients": "recursion",
+}
+
+__all__ = sorted(_LAZY)
+
+
+def __getattr__(name: str):
+    mod = _LAZY.get(name)
+    if mod is None:
+        raise AttributeError(f"module 'orbtool.analysis' has no attribute {name!r}")
+    try:
+        value = getattr(importlib.import_module(f"orbtool.analysis.{mod}"), name)
+    except AttributeError:
+        # the name may live in a sibling module; search the analysis modules once
+        for other in ("geometry", "states", "alignment", "density", "moments", "recursion"):
+            try:
+                m = importlib.import_module(f"orbtool.analysis.{other}")
+            except ImportError:
+                continue
+            if hasattr(m, name):
+                value = getattr(m, name)
+                break
+        else:
+            raise
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LAZY))

@@ -1,0 +1,159 @@
+"""The ``orbtool`` command line.
+
+Verbs: ``inspect`` (what a file holds), ``analyze`` (a family manifest →
+table, fit, figures, report), ``fit`` (the shared model fit only), ``demo``
+(the bundled demo family). Exit codes: 0 success, 1 an orbtool error in the
+input or analysis (message without traceback unless ``--debug``), 2 usage.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from .errors import OrbtoolError
+
+__all__ = ["main", "build_parser"]
+
+
+def _inspect(args) -> int:
+    from .io.registry import guess_format
+    path = Path(args.file)
+    if not path.exists():
+        raise OrbtoolError(f"{path}: no such file or folder")
+    info: dict = {"file": str(path)}
+    found = None
+    for kind in ("grid", "projections", "pdos", "structure", "energy"):
+        try:
+            fmt = guess_format(path, kind)
+        except OrbtoolError:
+            continue
+        found = (kind, fmt)
+        break
+    if found is None:
+        raise OrbtoolError(f"{path}: not a file format orbtool recognises "
+                           "(grids: cube, XSF, CHGCAR family; PDOS: DOSCAR, projwfc-style, per-kind pdos, orbtool; "
+                           "projections: PROCAR, orbtool; structures: anything ASE reads)")
+    kind, fmt = found
+    info.update(kind=kind, format=fmt.name)
+    import orbtool
+    if kind == "grid":
+        grids = orbtool.read_grids(path, format=fmt.name)
+        info["grids"] = [{"name": g.name, "shape": list(g.shape), "unit": g.unit, "volume_A3": g.volume,
+                          "integral": g.integrate(), "min": float(g.values.min()), "max": float(g.values.max()),
+                          "atoms": None if g.atoms is None else g.atoms.get_chemical_formula()} for g in grids]
+    elif kind == "pdos":
+        p = orbtool.read_pdos(path, format=fmt.name)
+        info.update(energy_range_eV=[float(p.energies[0]), float(p.energies[-1])], points=int(p.energies.size),
+                    nspin=p.nspin, channels=len(p.channels), resolution=p.orbital_resolution(),
+                    atoms=len(p.atom_indices), fermi_eV=p.fermi)
+    elif kind == "projections":
+        b = orbtool.read_projections(path, format=fmt.name)
+        info.update(nspin=b.nspin, kpoints=b.nkpoints, bands=b.nbands, atoms=b.natoms, orbitals=list(b.orbitals),
+                    has_occupations=b.occupations is not None, fermi_eV=b.fermi,
+                    energy_range_eV=[float(b.energies.min()), float(b.energies.max())])
+    elif kind == "structure":
+        a = orbtool.read_structure(path)
+        info.update(atoms=len(a), formula=a.get_chemical_formula(), volume_A3=float(a.get_volume()))
+    else:
+        from .io import read_energy
+        info.update(total_energy_eV=read_energy(path))
+    if args.json:
+        print(json.dumps(info, indent=1))
+    else:
+        print(f"{info.pop('file')}: {info.pop('kind')} data, format {info.pop('format')}")
+        for k, v in info.items():
+            if k == "grids":
+                for g in v:
+                    print(f"  grid {g['name'] or '(unnamed)'}: {'x'.join(map(str, g['shape']))} points, unit {g['unit']}, "
+                          f"cell {g['volume_A3']:.3f} Å^3, integral {g['integral']:.6g}, range [{g['min']:.4g}, {g['max']:.4g}]"
+                          + (f", atoms {g['atoms']}" if g["atoms"] else ""))
+            else:
+                print(f"  {k:<16} {v}")
+    return 0
+
+
+def _analyze(args) -> int:
+    from .pipeline import run_analysis
+    run_analysis(args.manifest, args.out, force=args.force, workers=args.workers, scheduler=args.scheduler,
+                 figures=not args.no_figures, quiet=args.quiet)
+    return 0
+
+
+def _fit(args) -> int:
+    from .pipeline import run_fit
+    result = run_fit(args.manifest, workers=args.workers, quiet=args.quiet)
+    print(result.summary())
+    if args.json:
+        Path(args.json).write_text(json.dumps(result.to_dict(), indent=1, default=float))
+    return 0
+
+
+def _demo(args) -> int:
+    from .pipeline import demo_manifest, run_analysis
+    out = args.out or "orbtool-demo-output"
+    run_analysis(demo_manifest(), out, force=args.force, workers=args.workers, figures=True, quiet=args.quiet,
+                 demo=True)
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="orbtool", description="Why is this vacancy level deep? Read DFT outputs, "
+                                "characterise the in-gap state, fit a dangling-orbital tight-binding model.")
+    p.add_argument("--debug", action="store_true", help="show full tracebacks on errors")
+    from . import __version__
+    p.add_argument("--version", action="version", version=f"orbtool {__version__}")
+    sub = p.add_subparsers(dest="verb", metavar="VERB")
+    sub.required = True
+
+    s = sub.add_parser("inspect", help="say what a grid / DOS / projection / structure file holds")
+    s.add_argument("file", help="file (or folder for per-atom PDOS files)")
+    s.add_argument("--json", action="store_true", help="print machine-readable JSON")
+    s.set_defaults(func=_inspect)
+
+    def common(sp):
+        sp.add_argument("--workers", type=int, default=None, help="parallel processes (default: number of cores)")
+        sp.add_argument("--quiet", action="store_true", help="no progress bars")
+
+    s = sub.add_parser("analyze", help="analyse a family manifest: table, shared fit, figures, HTML report")
+    s.add_argument("manifest", help="family manifest (TOML, see docs/manifest.md)")
+    s.add_argument("--out", required=True, help="output folder (created; never emptied)")
+    s.add_argument("--force", action="store_true", help="write into a non-empty folder orbtool did not create")
+    s.add_argument("--scheduler", default=None, help="dask.distributed scheduler address (optional)")
+    s.add_argument("--no-figures", action="store_true", help="skip static figures (faster)")
+    common(s)
+    s.set_defaults(func=_analyze)
+
+    s = sub.add_parser("fit", help="fit the shared dangling-orbital model across a family and print it")
+    s.add_argument("manifest", help="family manifest (TOML)")
+    s.add_argument("--json", default=None, metavar="FILE", help="also write the fit as JSON to FILE")
+    common(s)
+    s.set_defaults(func=_fit)
+
+    s = sub.add_parser("demo", help="run the whole pipeline on the bundled demo family (model data)")
+    s.add_argument("--out", default=None, help="output folder (default: ./orbtool-demo-output)")
+    s.add_argument("--force", action="store_true", help="write into a non-empty folder orbtool did not create")
+    common(s)
+    s.set_defaults(func=_demo)
+    return p
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except OrbtoolError as exc:
+        if args.debug:
+            raise
+        print(f"orbtool: error: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("orbtool: interrupted", file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
