@@ -1,0 +1,410 @@
+"""Batch analysis of a chemical family and the family table.
+
+:func:`analyze_family` runs :func:`analyze_case` on every case — in worker
+processes (:mod:`concurrent.futures`) by default, or on a
+``dask.distributed`` cluster when a ``Client`` or scheduler address is given
+— and collects a :class:`FamilyAnalysis`: one row per case (geometry
+descriptors, the in-gap state and its character), errors per case without
+stopping the others, a shared tight-binding fit, transition levels, SRH
+factors and trends.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import os
+import time
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from .errors import OrbtoolError
+
+__all__ = ["CaseAnalysis", "FamilyAnalysis", "analyze_case", "analyze_family", "TOXIC_ELEMENTS", "clean_for_json"]
+
+#: elements whose presence adds a handling caution to reports (common practice: the
+#: heavy-metal and metalloid hazards named in most chemical-safety regulations)
+TOXIC_ELEMENTS = ("Pb", "Cd", "Tl", "Hg", "As", "Se", "Te", "Sb", "Be", "Cr", "Ba")
+
+
+@dataclass(eq=False)
+class CaseAnalysis:
+    """What orbtool found for one case.
+
+    Attributes
+    ----------
+    name, labels, charge : the case's identity.
+    site : VacancySite or None
+    states : list of DefectState (in-gap states, may be empty: no deep level)
+    state : DefectState or None — the defect state (largest first-shell weight)
+    descriptors : dict of float — geometry descriptors of the site
+    moments : dict — first-shell PDOS moments host vs defect (may be empty)
+    error : str or None — why the analysis stopped, if it did
+    notes : list of str — guesses and warnings
+    seconds : float — wall time
+    """
+
+    name: str
+    labels: dict
+    charge: int
+    site: Any = None
+    states: list = field(default_factory=list)
+    state: Any = None
+    descriptors: dict = field(default_factory=dict)
+    moments: dict = field(default_factory=dict)
+    error: str | None = None
+    notes: list = field(default_factory=list)
+    seconds: float = 0.0
+
+    @property
+    def ok(self) -> bool:
+        return self.error is None
+
+
+def _first_shell_moments(case, site) -> dict:
+    """Change of the first-shell PDOS moments host → defect (Cyrot-Lackmann moments theorem)."""
+    if case.defect_pdos is None or case.host_pdos is None:
+        return {}
+    from .analysis import moments as mom
+    fn = getattr(mom, "compare_neighbour_moments", None) or getattr(mom, "compare_moments", None)
+    if fn is None:
+        return {}
+    res = fn(case, site=site)
+    return res.to_dict() if hasattr(res, "to_dict") else dict(res)
+
+
+def analyze_case(case) -> CaseAnalysis:
+    """Locate the vacancy, find the in-gap states and summarise one case.
+
+    Errors that belong to the input (no host, no vacancy, no gap …) are
+    recorded in :attr:`CaseAnalysis.error` instead of raised, so a family
+    batch continues past a broken case.
+    """
+    t0 = time.perf_counter()
+    out = CaseAnalysis(case.name, dict(case.labels), case.charge)
+    try:
+        from .analysis import in_gap_states, locate_vacancy
+        if case.host is None:
+            raise OrbtoolError("no host structure: the vacancy cannot be located")
+        out.site = locate_vacancy(case.host, case.defect)
+        out.descriptors = dict(out.site.descriptors())
+        out.states = list(in_gap_states(case, site=out.site))
+        if out.states:
+            out.state = max(out.states, key=lambda s: (s.shell_fractions.get(1, 0.0), -abs(s.spin)))
+        else:
+            out.notes.append("no state in the gap: the vacancy leaves no deep Kohn–Sham level")
+        try:
+            out.moments = _first_shell_moments(case, out.site)
+        except OrbtoolError as exc:
+            out.notes.append(f"moments skipped: {exc}")
+    except OrbtoolError as exc:
+        out.error = str(exc)
+    out.seconds = time.perf_counter() - t0
+    return out
+
+
+def _progress(total, enabled, desc):
+    if not enabled:
+        return None
+    from tqdm.auto import tqdm
+    return tqdm(total=total, desc=desc, unit="case", leave=False)
+
+
+def analyze_family(family, *, workers: int | None = None, client=None, progress: bool = True) -> "FamilyAnalysis":
+    """Analyse every case of ``family``.
+
+    Parameters
+    ----------
+    family : Family
+    workers : int, optional
+        Worker processes (default ``os.cpu_count()``; 1 = run in this process).
+    client : dask.distributed.Client or str, optional
+        Run on dask instead (a ``Client`` or a scheduler address).
+    progress : bool
+        Show a progress bar (terminal or notebook).
+    """
+    cases = list(family.cases)
+    results: dict[str, CaseAnalysis] = {}
+    bar = _progress(len(cases), progress, "analysing cases")
+    if client is not None:
+        from dask.distributed import Client
+        from dask.distributed import as_completed as dask_completed
+        own = isinstance(client, str)
+        cl = Client(client) if own else client
+        try:
+            futures = cl.map(analyze_case, cases, pure=False)
+            for fut in dask_completed(futures):
+                r = fut.result()
+                results[r.name] = r
+                if bar:
+                    bar.update()
+        finally:
+            if own:
+                cl.close()
+    else:
+        n = workers or os.cpu_count() or 1
+        if n <= 1 or len(cases) <= 1:
+            for c in cases:
+                results[c.name] = analyze_case(c)
+                if bar:
+                    bar.update()
+        else:
+            with ProcessPoolExecutor(max_workers=min(n, len(cases))) as ex:
+                futs = [ex.submit(analyze_case, c) for c in cases]
+                for f in as_completed(futs):
+                    r = f.result()
+                    results[r.name] = r
+                    if bar:
+                        bar.update()
+    if bar:
+        bar.close()
+    return FamilyAnalysis(family, [results[c.name] for c in cases])
+
+
+def _num(x):
+    if x is None:
+        return None
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return x
+    return v if math.isfinite(v) else None
+
+
+@dataclass(eq=False)
+class FamilyAnalysis:
+    """The family's results, one :class:`CaseAnalysis` per case, plus the
+    family-level steps (shared fit, transition levels, trends) computed on
+    demand and kept."""
+
+    family: Any
+    results: list
+    fit_result: Any = None
+    fit_cases: list = field(default_factory=list)
+    levels: dict = field(default_factory=dict)
+    notes: list = field(default_factory=list)
+
+    def __getitem__(self, name) -> CaseAnalysis:
+        for r in self.results:
+            if r.name == name:
+                return r
+        raise KeyError(name)
+
+    @property
+    def errors(self) -> dict[str, str]:
+        return {r.name: r.error for r in self.results if r.error}
+
+    def toxic_elements(self) -> list[str]:
+        """Elements of :data:`TOXIC_ELEMENTS` present in the family."""
+        present = self.family.elements()
+        return [e for e in TOXIC_ELEMENTS if e in present]
+
+    # --------------------------------------------------------------- fitting
+    def shared_fit(self, orbitals: str = "hybrid", charge: int | None = 0, per_case=(), **fit_options):
+        """One tight-binding model fitted across the family.
+
+        Each case contributes its defect state (level above the VBM and its
+        character) as a target; the coupling law and the on-site parameters
+        are shared. Only cases in charge state ``charge`` are used (the model
+        has no charge dependence); ``None`` uses every case.
+        """
+        from . import tb
+        use = [r for r in self.results if r.ok and r.state is not None and (charge is None or r.charge == charge)]
+        if not use:
+            raise OrbtoolError("no case has an in-gap defect state to fit"
+                               + (f" in charge state {charge:+d}" if charge is not None else ""))
+        targets = []
+        for r in use:
+            targets += tb.targets_from_case(self.family[r.name], r.site, r.state)
+        model = tb.ClusterModel.around(use[0].site, orbitals=orbitals)
+        self.fit_result = tb.fit(model, targets, per_case=per_case, **fit_options)
+        self.fit_cases = [r.name for r in use]
+        return self.fit_result
+
+    # ------------------------------------------------------- thermodynamics
+    def transition_levels(self, *, srh: dict | None = None):
+        """Formation diagrams (grouped by the ``defect`` label), joined with the
+        Kohn–Sham state and SRH factors (:class:`orbtool.levels.DefectLevels`).
+
+        Chemical potentials come from ``family.references["mu"]`` (absolute,
+        eV/atom). SRH conditions default to the illustrative values in
+        ``srh`` (masses 0.3 mₑ, σ = 1e-15 cm², N_t = 1e15 cm⁻³, 300 K); the
+        *ratio* to a mid-gap trap that orbtool reports hardly depends on them.
+        """
+        from . import levels as lv
+        refs = self.family.references or {}
+        mu = refs.get("mu")
+        conditions = {"electron_mass": 0.3, "hole_mass": 0.3, "sigma": 1e-15, "trap_density": 1e15,
+                      "temperature": 300.0, **(srh or {})}
+        groups: dict[str, list] = {}
+        for r in self.results:
+            key = r.labels.get("defect") or r.name
+            groups.setdefault(key, []).append(r)
+        out = {}
+        for key, members in groups.items():
+            ok = [m for m in members if m.ok]
+            if not ok:
+                continue
+            base = min(ok, key=lambda m: abs(m.charge))
+            edges = base.state.edges if base.state is not None else None
+            if edges is None:
+                from .analysis import band_edges
+                c = self.family[base.name]
+                src = c.host_projections or c.host_pdos
+                if src is None:
+                    continue
+                edges = band_edges(src)
+            gap = float(edges.gap)
+            diagram = None
+            cases = [self.family[m.name] for m in ok]
+            if mu and all(c.total_energy is not None and c.host_total_energy is not None for c in cases):
+                try:
+                    diagram = lv.formation_energies(cases, mu, vbm=float(edges.vbm), gap=gap, name=key)
+                except OrbtoolError as exc:
+                    self.notes.append(f"{key}: formation energies skipped: {exc}")
+            try:
+                mat = lv.Semiconductor.from_masses(gap, conditions["electron_mass"], conditions["hole_mass"],
+                                                   conditions["temperature"])
+                rec = lv.TrapRecombination.from_capture(mat, conditions["sigma"], conditions["sigma"],
+                                                        conditions["trap_density"])
+                out[key] = lv.DefectLevels.build(key, state=base.state, diagram=diagram, recombination=rec, gap=gap)
+            except OrbtoolError as exc:
+                self.notes.append(f"{key}: levels skipped: {exc}")
+        self.levels = out
+        return out
+
+    # ----------------------------------------------------------------- table
+    def table(self) -> list[dict]:
+        """One flat row per case: labels, geometry, state, character, levels."""
+        rows = []
+        for r in self.results:
+            row: dict[str, Any] = {"case": r.name, "charge": r.charge, **{k: v for k, v in r.labels.items()}}
+            row["status"] = "ok" if r.ok else "error"
+            row["error"] = r.error or ""
+            if r.site is not None:
+                row["removed"] = r.site.element
+                row["point_group"] = r.site.point_group
+                row["n_first_shell"] = len(r.site.first_shell)
+                for k, v in r.descriptors.items():
+                    row[k] = _num(v)
+            row["n_in_gap"] = len(r.states)
+            s = r.state
+            if s is not None:
+                row.update(level_above_vbm=_num(s.above_vbm), level_below_cbm=_num(s.below_cbm),
+                           occupation=_num(s.occupation), dispersion=_num(s.dispersion),
+                           gap=_num(s.edges.gap) if getattr(s, "edges", None) else None,
+                           shell1_fraction=_num(s.shell_fractions.get(1)),
+                           shell2_fraction=_num(s.shell_fractions.get(2)),
+                           s_weight=_num(s.orbital_weights.get("s")), p_weight=_num(s.orbital_weights.get("p")),
+                           d_weight=_num(s.orbital_weights.get("d")))
+            key = r.labels.get("defect") or r.name
+            dl = self.levels.get(key)
+            if dl is not None:
+                ks = [e for e in dl.entries if e.kind == "single-particle"]
+                if ks and ks[0].srh_ratio is not None:
+                    row["srh_vs_midgap"] = _num(ks[0].srh_ratio)
+                tl = [e for e in dl.entries if e.kind == "thermodynamic"]
+                row["transition_levels"] = "; ".join(f"{e.label} {e.above_vbm:+.3f}" for e in tl)
+            rows.append(row)
+        return rows
+
+    def columns(self) -> list[str]:
+        cols: list[str] = []
+        for row in self.table():
+            for k in row:
+                if k not in cols:
+                    cols.append(k)
+        return cols
+
+    def to_csv(self) -> str:
+        """The table as CSV text (empty cells for missing values)."""
+        buf = io.StringIO()
+        w = csv.DictWriter(buf, fieldnames=self.columns(), lineterminator="\n")
+        w.writeheader()
+        for row in self.table():
+            w.writerow({k: ("" if v is None else (repr(v) if isinstance(v, float) else v)) for k, v in row.items()})
+        return buf.getvalue()
+
+    def to_json(self) -> str:
+        """Table, errors, fit and levels as JSON text."""
+        doc = {"family": getattr(self.family, "name", "family"), "cases": self.table(), "errors": self.errors,
+               "notes": self.notes, "toxic_elements": self.toxic_elements()}
+        if self.fit_result is not None:
+            doc["fit"] = self.fit_result.to_dict()
+            doc["fit_cases"] = self.fit_cases
+        if self.levels:
+            doc["levels"] = {k: v.to_dict() for k, v in self.levels.items()}
+        return json.dumps(clean_for_json(doc), indent=1, allow_nan=False)
+
+    # ---------------------------------------------------------------- trends
+    def trends(self) -> dict:
+        """Level depth against every numeric descriptor: Pearson r over the
+        cases with a defect state (n ≥ 3), and, when a shared fit exists, the
+        model's split of the level change into a structure and a chemistry
+        part (see :meth:`knob_effects`)."""
+        rows = [r for r in self.table() if r.get("level_above_vbm") is not None]
+        out: dict[str, Any] = {"n": len(rows), "correlation": {}}
+        if len(rows) >= 3:
+            y = np.array([r["level_above_vbm"] for r in rows])
+            for k in rows[0]:
+                vals = [r.get(k) for r in rows]
+                if k in ("level_above_vbm", "level_below_cbm", "charge") or not all(
+                        isinstance(v, float) for v in vals):
+                    continue
+                x = np.array(vals)
+                if np.ptp(x) > 1e-12 and np.ptp(y) > 1e-12:
+                    out["correlation"][k] = float(np.corrcoef(x, y)[0, 1])
+        if self.fit_result is not None:
+            out["knobs"] = self.knob_effects()
+        return out
+
+    def knob_effects(self) -> list[dict]:
+        """For each fitted case: level shift (eV) from a 5 % inward breathing
+        (structure knob) and from swapping its cation for each other cation in
+        the family (chemistry knob), predicted by the shared fit."""
+        fit = self.fit_result
+        cations = [c for c in self.family.label_values("cation") if c]
+        out = []
+        for name in self.fit_cases:
+            r = self[name]
+            base = fit.predict(case=name)
+            entry = {"case": name, "level": base.level,
+                     "breathe_-5%": fit.predict(geometry=r.site.breathe(-0.05), case=name).level - base.level}
+            own = r.labels.get("cation")
+            for other in cations:
+                if own and other != own:
+                    try:
+                        entry[f"swap_{own}->{other}"] = fit.predict(swap={own: other}, case=name).level - base.level
+                    except OrbtoolError as exc:
+                        entry[f"swap_{own}->{other}"] = None
+                        self.notes.append(f"{name}: swap {own}->{other} not predicted: {exc}")
+            out.append(entry)
+        return out
+
+
+def clean_for_json(o):
+    """Recursively turn numpy scalars/arrays into Python values and non-finite
+    floats into ``None`` (JSON has no NaN)."""
+    if isinstance(o, dict):
+        return {str(k): clean_for_json(v) for k, v in o.items()}
+    if isinstance(o, (list, tuple, set)):
+        return [clean_for_json(v) for v in o]
+    if isinstance(o, np.ndarray):
+        return clean_for_json(o.tolist())
+    if isinstance(o, (np.floating, float)):
+        v = float(o)
+        return v if math.isfinite(v) else None
+    if isinstance(o, (np.integer,)):
+        return int(o)
+    if isinstance(o, np.bool_):
+        return bool(o)
+    if o is None or isinstance(o, (str, int, bool)):
+        return o
+    if hasattr(o, "to_dict"):
+        return clean_for_json(o.to_dict())
+    return str(o)
