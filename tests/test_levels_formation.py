@@ -10,6 +10,8 @@ import math
 import numpy as np
 import pytest
 from ase.build import bulk
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from orbtool.case import DefectCase
 from orbtool.errors import InputFormatError, ModelError
@@ -159,3 +161,49 @@ def test_bad_inputs_raise_clear_errors():
     host = bulk("MgO", "rocksalt", a=4.2)
     with pytest.raises(InputFormatError, match="no defect total energy"):
         ChargeState.from_case(DefectCase(name="x", defect=host))
+
+
+def test_checked_chemical_potentials_flow_into_formation_energy():
+    # ZnO, ΔH = −3.6 eV: O-poor (Zn-rich) Δμ_O = −3.6 (Zhang & Northrup 1991 bound, by hand);
+    # E_f(V_O, q = 0) = E_def − E_host + μ_O with μ_O = E_O2/2 + Δμ_O
+    r = stability_region("ZnO", -3.6)
+    mu = r.rich("Zn", references={"Zn": -1.26, "O": -4.93})
+    d = formation_energies([ChargeState(0, -50.0, -55.0)], mu, vbm=0.0, gap=3.4, exchanged={"O": -1})
+    assert d.formation_energy(0) == pytest.approx(-50.0 + 55.0 + (-4.93 - 3.6), abs=1e-12)
+    assert d.transitions == () and any("Zn-rich" in n for n in d.notes)
+    with pytest.raises(ModelError, match="no absolute values"):
+        formation_energies([ChargeState(0, -50.0, -55.0)], r.rich("Zn"), vbm=0.0, gap=3.4, exchanged={"O": -1})
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(-5, 5, allow_nan=False), min_size=2, max_size=6),
+       st.lists(st.integers(-3, 3), min_size=2, max_size=6, unique=True))
+def test_envelope_matches_brute_force_minimum(offsets, charges):
+    # the lowest-energy envelope (Freysoldt 2014, fig. 2) must equal min_q E_f(q, E_F) on a dense grid,
+    # and each reported ε(q/q') must equal eq. 4 for that pair
+    k = min(len(offsets), len(charges))
+    states = [ChargeState(q, e) for q, e in zip(charges[:k], offsets[:k])]
+    d = formation_energies(states, {}, vbm=0.0, gap=2.0, exchanged={}, host_total_energy=0.0)
+    ef = np.linspace(-4, 6, 2001)
+    brute = np.min([e + q * ef for q, e in zip(charges[:k], offsets[:k])], axis=0)
+    low, _ = d.lowest(ef)
+    assert np.allclose(low, brute, atol=1e-12)
+    for (q, lo, hi) in d.envelope:
+        mid = 0.5 * (max(lo, -50) + min(hi, 50))
+        assert d.formation_energy(q, mid) == pytest.approx(float(d.lowest(mid)[0]), abs=1e-9)
+    for t in d.transitions:
+        e_from = dict(zip(charges[:k], offsets[:k]))[t.charge_from]
+        e_to = dict(zip(charges[:k], offsets[:k]))[t.charge_to]
+        assert t.above_vbm == pytest.approx((e_from - e_to) / (t.charge_to - t.charge_from), abs=1e-9)
+
+
+def test_plain_numbers_are_accepted():
+    # same hand-built example as above (Freysoldt 2014 eq. 4), given as plain tuples and as a dict
+    ef0, ef1, eps10 = _by_hand()
+    kw = dict(vbm=E_VBM, gap=1.5, exchanged={"O": -1}, host_total_energy=E_HOST)
+    d1 = formation_energies([(0, E_DEF0), (1, E_DEF1, CORR1)], {"O": MU_O}, **kw)
+    assert d1.transitions[0].above_vbm == pytest.approx(eps10, abs=1e-12)
+    d2 = formation_energies({0: E_DEF0, 1: E_DEF1}, {"O": MU_O}, **kw)
+    assert d2.transitions[0].above_vbm == pytest.approx(eps10 + CORR1, abs=1e-12)  # no correction: shifts by it
+    with pytest.raises(InputFormatError, match="cannot read a charge state"):
+        formation_energies(["q=0"], {"O": MU_O}, **kw)

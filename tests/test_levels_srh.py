@@ -137,3 +137,20 @@ def test_defect_levels_join_ks_state_levels_and_srh():
     assert "ε(+1/0)" in dl.summary()
     with pytest.raises(ModelError, match="lacks"):
         DefectLevels.build(state=types.SimpleNamespace(above_vbm=0.3), diagram=d)
+
+
+def test_defect_levels_from_state_only():
+    # Kohn–Sham state alone: gap = above + below; the SRH factor equals the direct midgap ratio
+    rec = TrapRecombination(_si(), tau_n=1e-7, tau_p=4e-7, doping=-1e16, injection=1e9)
+    ks = types.SimpleNamespace(above_vbm=0.95, below_cbm=0.17, occupation=0.0)
+    dl = DefectLevels.build("V_X", state=ks, recombination=rec)
+    assert dl.gap == pytest.approx(SI_GAP, abs=1e-12)
+    [e] = dl.entries
+    assert e.kind == "single-particle" and e.depth == pytest.approx(0.17, abs=1e-12)
+    # p-type, low injection: U = Δn/[τ_n (1 + p1/p0) + τ_p n1/p0] in the limit p0 ≫ n, Δn (Shockley–Read 1952)
+    kt = KB * 300.0
+    n1 = SI_NI * math.exp((0.95 - rec.material.intrinsic_level) / kt)
+    n1_mid = SI_NI
+    expect = (1e-7 + 4e-7 * (1e9 + n1_mid) / 1e16) / (1e-7 + 4e-7 * (1e9 + n1) / 1e16)
+    assert e.srh_ratio == pytest.approx(expect, rel=1e-4)
+    assert dl.deepest is None and dl.diagram is None

@@ -272,6 +272,17 @@ class FormationDiagram:
         }
 
 
+def _as_state(item) -> ChargeState:
+    if isinstance(item, ChargeState):
+        return item
+    if hasattr(item, "total_energy") and hasattr(item, "charge"):
+        return ChargeState.from_case(item)
+    if isinstance(item, (tuple, list)) and len(item) in (2, 3):
+        return ChargeState(*item) if len(item) == 2 else ChargeState(item[0], item[1], correction=item[2])
+    raise InputFormatError(None, None, f"cannot read a charge state from {item!r}; expected a ChargeState, a "
+                           "DefectCase or (charge, total energy[, correction])", field="states")
+
+
 def _lower_envelope(charges: np.ndarray, offsets: np.ndarray) -> list[tuple[int, float, float]]:
     """Lower envelope of the lines ``offset + q E_F`` over the real line.
 
@@ -301,8 +312,8 @@ def formation_energies(states, chemical_potentials, *, vbm: float, gap: float, e
 
     Parameters
     ----------
-    states : iterable of ChargeState or DefectCase
-        One entry per charge state (each charge once).
+    states : iterable of ChargeState, DefectCase or (q, E_def[, E_corr]) tuples, or dict {q: E_def}
+        One entry per charge state (each charge once); energies in eV.
     chemical_potentials : ChemicalPotentials or dict[str, float]
         ``μ_i`` in eV/atom: a point checked by
         :meth:`~orbtool.levels.chempot.StabilityRegion.at` (its absolute
@@ -327,7 +338,7 @@ def formation_energies(states, chemical_potentials, *, vbm: float, gap: float, e
     ModelError
         A missing chemical potential, a non-positive gap.
     """
-    states = [s if isinstance(s, ChargeState) else ChargeState.from_case(s) for s in states]
+    states = [_as_state(s) for s in (states.items() if isinstance(states, dict) else states)]
     if not states:
         raise InputFormatError(None, None, f"{name}: no charge states given", field="states")
     charges = [s.charge for s in states]
