@@ -28,7 +28,8 @@ from ..errors import GeometryError, InputFormatError
 from ..grid import Grid
 from ._partition import nearest_atom_sums, sphere_sums
 
-__all__ = ["Partition", "Localisation", "partition", "localisation", "site_position"]
+__all__ = ["Partition", "Localisation", "partition", "partition_spheres", "partition_voronoi", "localisation",
+           "site_position"]
 
 #: cell mismatch tolerated between a grid and a structure, Å (per lattice-vector component)
 CELL_TOLERANCE = 1e-3
@@ -274,6 +275,16 @@ def partition(grid: Grid, method: str = "voronoi", *, atoms=None, radii=None) ->
     return Partition(method=method, charges=q, total=total, outside=total - float(q.sum()),
                      symbols=tuple(atoms.get_chemical_symbols()), radii=r, source=grid.source,
                      provenance=tuple(notes))
+
+
+def partition_spheres(grid: Grid, radii, *, atoms=None) -> Partition:
+    """:func:`partition` with ``method="spheres"``."""
+    return partition(grid, "spheres", atoms=atoms, radii=radii)
+
+
+def partition_voronoi(grid: Grid, *, atoms=None) -> Partition:
+    """:func:`partition` with ``method="voronoi"``."""
+    return partition(grid, "voronoi", atoms=atoms)
 
 
 def localisation(grid: Grid, site, *, within=(2.0, 3.0, 4.0), bin_width: float | None = None) -> Localisation:

@@ -24,7 +24,8 @@ from ..errors import InputFormatError, OrbtoolError
 from ..spectra import ProjectedDOS
 from .recursion import Recursion, recursion_coefficients
 
-__all__ = ["Moments", "dos_moments", "channel_moments", "MomentRow", "MomentComparison", "neighbour_moments"]
+__all__ = ["Moments", "dos_moments", "channel_moments", "pdos_moments", "MomentRow", "MomentComparison",
+           "neighbour_moments", "compare_moments"]
 
 _L_NAMES = "spdf"
 
@@ -262,3 +263,9 @@ def neighbour_moments(case, site=None, *, window=None, alignment=None, shell: in
     notes.append("Δvariance = −(lost Σ|t|²) holds for complete bands (moments theorem); windows cut it")
     return MomentComparison(rows=tuple(rows), window=tuple(float(w) for w in window), shift=shift,
                             provenance=tuple(notes))
+
+
+#: alias of :func:`channel_moments`
+pdos_moments = channel_moments
+#: alias of :func:`neighbour_moments`
+compare_moments = neighbour_moments

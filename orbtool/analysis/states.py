@@ -1,0 +1,379 @@
+"""Band edges of the host and the defect's in-gap states with their character.
+
+* :func:`band_edges` — VBM, CBM and gap (spin-resolved) from band energies
+  and occupations, or from a projected/total DOS with a stated threshold.
+* :func:`in_gap_states` — every band of the defect cell whose k-averaged
+  energy, put on the host scale by :func:`~orbtool.analysis.alignment.align`,
+  lies inside (VBM + tol, CBM − tol), with its occupation, dispersion over k
+  and its weights on atoms, orbitals and neighbour shells.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import InputFormatError, OrbtoolError
+from ..spectra import BandProjections, ProjectedDOS
+from .alignment import Alignment, align, resolve_site
+
+__all__ = ["NoGapError", "BandEdges", "band_edges", "DefectState", "in_gap_states", "Alignment", "align"]
+
+_L_NAMES = "spdf"
+
+
+class NoGapError(OrbtoolError, ValueError):
+    """The host has no band gap (a metal, or the data cannot show one), so no
+    in-gap level can be defined."""
+
+
+@dataclass(frozen=True, eq=False)
+class BandEdges:
+    """Valence-band maximum, conduction-band minimum and gap.
+
+    Attributes
+    ----------
+    vbm, cbm, gap : float
+        eV (host scale); ``gap = cbm − vbm`` over both spins.
+    by_spin : dict[int, tuple[float, float]]
+        (vbm, cbm) of each spin channel, eV.
+    method : str
+        How the edges were found (including any threshold).
+    provenance : tuple of str
+    """
+
+    vbm: float
+    cbm: float
+    gap: float
+    by_spin: dict
+    method: str
+    provenance: tuple = field(default_factory=tuple)
+
+    def summary(self) -> str:
+        lines = [f"Band edges by {self.method}",
+                 f"  VBM {self.vbm:.4f} eV   CBM {self.cbm:.4f} eV   gap {self.gap:.4f} eV"]
+        if len(self.by_spin) > 1:
+            for s, (v, c) in self.by_spin.items():
+                lines.append(f"  spin {'up' if s == 0 else 'down'}: VBM {v:.4f}  CBM {c:.4f}  gap {c - v:.4f} eV")
+        lines += [f"  note: {p}" for p in self.provenance]
+        return "\n".join(lines)
+
+
+def _edges_from_bands(proj: BandProjections, fermi, occupied, min_gap) -> BandEdges:
+    e = proj.energies
+    if proj.occupations is None:
+        if fermi is None:
+            raise InputFormatError(proj.source, None, "band edges need band occupations, which these projections "
+                                   "lack: read a file with occupations or pass fermi= (eV)", field="occupations")
+        occ = e <= fermi
+        how = f"band energies below the given Fermi level {fermi:.4f} eV"
+    else:
+        frac = proj.occupations / proj.max_occupation
+        partial = (frac > 0.05) & (frac < 0.95)
+        if partial.any():
+            raise NoGapError(f"{proj.source or 'the host projections'}: {int(partial.sum())} state(s) are partly "
+                             f"occupied (e.g. at {float(e[partial].min()):.4f} eV): the host is metallic, so no "
+                             "band gap and no in-gap levels can be defined")
+        occ = frac >= occupied
+        how = f"band energies and occupations (occupied when ≥ {occupied:g} of the maximum)"
+    by_spin = {}
+    for s in range(proj.nspin):
+        if not occ[s].any() or occ[s].all():
+            state = "empty" if not occ[s].any() else "full"
+            raise InputFormatError(proj.source, None, f"spin {s}: all bands are {state}; both occupied and empty "
+                                   "bands are needed for the edges", field="energies")
+        by_spin[s] = (float(e[s][occ[s]].max()), float(e[s][~occ[s]].min()))
+    vbm = max(v for v, _ in by_spin.values())
+    cbm = min(c for _, c in by_spin.values())
+    if not cbm - vbm > min_gap:
+        raise NoGapError(f"{proj.source or 'the host projections'}: CBM {cbm:.4f} eV is not above VBM {vbm:.4f} eV "
+                         f"by more than {min_gap} eV: the host is metallic, so no in-gap levels can be defined")
+    return BandEdges(vbm=vbm, cbm=cbm, gap=cbm - vbm, by_spin=by_spin, method=how,
+                     provenance=(f"{proj.nkpoints} k-point(s), {proj.nbands} bands",))
+
+
+def _crossing(e, d, i, j, thr):
+    """Energy where the DOS crosses thr between samples i and j (linear)."""
+    if d[i] == d[j]:
+        return float(e[j])
+    return float(e[i] + (thr - d[i]) * (e[j] - e[i]) / (d[j] - d[i]))
+
+
+def _edges_of_curve(e, d, fermi, thr, search, source):
+    low = d < thr
+    f = int(np.clip(np.searchsorted(e, fermi), 0, e.size - 1))
+    start = None
+    if low[f]:
+        start = f
+    else:
+        # the Fermi level of an insulator usually sits at the top of the valence band: look up first
+        up = np.flatnonzero(low[f:] & (e[f:] <= fermi + search))
+        down = np.flatnonzero(low[:f] & (e[:f] >= fermi - search))
+        if up.size:
+            start = f + int(up[0])
+        elif down.size:
+            start = int(down[-1])
+    if start is None:
+        raise NoGapError(f"{source or 'the host PDOS'}: the DOS stays above {thr:.3g} states/eV within "
+                         f"{search} eV of the Fermi level {fermi:.4f} eV: no gap (metal, or broadening too large)")
+    lo = start
+    while lo > 0 and low[lo - 1]:
+        lo -= 1
+    hi = start
+    while hi < e.size - 1 and low[hi + 1]:
+        hi += 1
+    if lo == 0 or hi == e.size - 1:
+        raise NoGapError(f"{source or 'the host PDOS'}: the low-DOS region around the Fermi level reaches the end "
+                         "of the energy grid; no band edge found")
+    return _crossing(e, d, lo - 1, lo, thr), _crossing(e, d, hi + 1, hi, thr)
+
+
+def _edges_from_dos(pdos: ProjectedDOS, threshold, fermi, search, min_gap) -> BandEdges:
+    fermi = pdos.fermi if fermi is None else float(fermi)
+    if fermi is None:
+        raise InputFormatError(pdos.source, None, "band edges from a DOS need its Fermi level (pdos.fermi) or "
+                               "fermi= (eV)", field="fermi")
+    if pdos.total is not None:
+        curves, kind = {s: pdos.total[s] for s in range(pdos.nspin)}, "total DOS"
+    else:
+        m = pdos.mask()
+        if not m.any():
+            m = pdos.mask(orbitals="tot")
+        curves = {s: pdos.values[m & pdos.mask(spin=s)].sum(axis=0) for s in range(pdos.nspin)}
+        kind = "sum of the projected DOS"
+    peak = max(float(c.max()) for c in curves.values())
+    thr = 0.01 * peak if threshold is None else float(threshold)
+    if not thr > 0:
+        raise InputFormatError(pdos.source, None, "threshold must be positive (states/eV)", field="threshold")
+    by_spin = {s: _edges_of_curve(pdos.energies, c, fermi, thr, search, pdos.source) for s, c in curves.items()}
+    vbm = max(v for v, _ in by_spin.values())
+    cbm = min(c for _, c in by_spin.values())
+    if not cbm - vbm > min_gap:
+        raise NoGapError(f"{pdos.source or 'the host PDOS'}: no gap wider than {min_gap} eV at threshold "
+                         f"{thr:.3g} states/eV")
+    how = f"{kind} crossing {thr:.3g} states/eV" + (" (1 % of its peak)" if threshold is None else "")
+    return BandEdges(vbm=vbm, cbm=cbm, gap=cbm - vbm, by_spin=by_spin, method=how,
+                     provenance=(f"energy step {pdos.step:.4f} eV; broadening narrows the apparent gap",))
+
+
+def band_edges(data, *, threshold: float | None = None, fermi: float | None = None, occupied: float = 0.5,
+               search: float = 1.0, min_gap: float = 1e-3) -> BandEdges:
+    """VBM, CBM and gap of a (host) calculation.
+
+    Parameters
+    ----------
+    data : BandProjections or ProjectedDOS
+        Band energies with occupations (preferred: exact edges over the
+        k-points sampled) or a DOS with a Fermi level.
+    threshold : float, optional
+        For a DOS: states/eV below which an energy counts as inside the gap
+        (default 1 % of the DOS peak; stated in ``method``).
+    fermi : float, optional
+        Fermi level, eV: replaces missing occupations / the DOS's own value.
+    occupied : float
+        Fraction of the maximum occupation above which a state is occupied.
+    search : float
+        For a DOS: how far from the Fermi level (eV) to look for the gap.
+    min_gap : float
+        Gaps not wider than this (eV) count as none.
+
+    Raises
+    ------
+    NoGapError
+        Metallic host (partly occupied states, or no low-DOS region).
+    """
+    if isinstance(data, BandProjections):
+        return _edges_from_bands(data, fermi, occupied, min_gap)
+    if isinstance(data, ProjectedDOS):
+        return _edges_from_dos(data, threshold, fermi, search, min_gap)
+    raise InputFormatError(None, None, f"band edges need BandProjections or ProjectedDOS, got {type(data).__name__}",
+                           field="data")
+
+
+# ---------------------------------------------------------------- in-gap states
+@dataclass(frozen=True, eq=False)
+class DefectState:
+    """One band of the defect cell inside the host gap.
+
+    Attributes
+    ----------
+    energy : float
+        k-weighted mean band energy on the defect cell's own scale, eV.
+    energy_aligned : float
+        The same on the host scale (``energy + alignment shift``), eV.
+    above_vbm, below_cbm : float
+        ``energy_aligned − VBM`` and ``CBM − energy_aligned``, eV.
+    band, spin : int
+        0-based band index and spin channel in the projections.
+    occupation, max_occupation : float
+        k-weighted electrons in the band, and what it can hold.
+    dispersion : float
+        Max − min band energy over the k-points, eV (large values mean the
+        defect interacts with its periodic images).
+    atom_weights : ndarray (natom,)
+        k-weighted projection on each atom, normalised to 1.
+    orbital_weights : dict
+        ``{"s", "p", "d"}`` (and ``"f"`` if present) → normalised weight.
+    atom_orbital : ndarray (natom, norb)
+        Normalised weights per atom and orbital column.
+    orbital_names : tuple of str
+        Names of the orbital columns.
+    shell_fractions : dict
+        ``{1: first shell, 2: second shell, "rest": everything else}``
+        (empty without a site).
+    edges : BandEdges
+    provenance : tuple of str
+    """
+
+    energy: float
+    energy_aligned: float
+    above_vbm: float
+    below_cbm: float
+    band: int
+    spin: int
+    occupation: float
+    max_occupation: float
+    dispersion: float
+    atom_weights: np.ndarray
+    orbital_weights: dict
+    atom_orbital: np.ndarray
+    orbital_names: tuple
+    shell_fractions: dict
+    edges: BandEdges
+    provenance: tuple = field(default_factory=tuple)
+
+    @property
+    def orbital_resolved(self) -> dict:
+        """Weight per orbital column (lm where the projections have it)."""
+        return {n: float(w) for n, w in zip(self.orbital_names, self.atom_orbital.sum(axis=0))}
+
+    def top_atoms(self, n: int = 5) -> list[tuple[int, float]]:
+        """The ``n`` atoms with the largest weight, as (index, weight)."""
+        order = np.argsort(-self.atom_weights, kind="stable")[:n]
+        return [(int(i), float(self.atom_weights[i])) for i in order]
+
+    def summary(self) -> str:
+        spin = "" if self.max_occupation == 2.0 else (" spin up" if self.spin == 0 else " spin down")
+        lines = [f"In-gap state: band {self.band}{spin}",
+                 f"  energy          {self.energy:.4f} eV (defect cell)   {self.energy_aligned:.4f} eV (host scale)",
+                 f"  position        VBM + {self.above_vbm:.4f} eV  /  CBM − {self.below_cbm:.4f} eV "
+                 f"(gap {self.edges.gap:.4f} eV)",
+                 f"  occupation      {self.occupation:.3f} of {self.max_occupation:g}",
+                 f"  dispersion      {self.dispersion:.4f} eV over k",
+                 "  orbitals        " + "  ".join(f"{k} {v:.3f}" for k, v in self.orbital_weights.items())]
+        if self.shell_fractions:
+            sf = self.shell_fractions
+            lines.append(f"  shells          first {sf[1]:.3f}  second {sf[2]:.3f}  rest {sf['rest']:.3f}")
+        lines.append("  atoms           " + "  ".join(f"#{i} {w:.3f}" for i, w in self.top_atoms()))
+        lines += [f"  note: {p}" for p in self.provenance]
+        return "\n".join(lines)
+
+
+def _shell_indices(site, shell):
+    shells = getattr(site, "shells", None)
+    if shells:
+        return [int(nb.index) for nb in shells[shell - 1]] if len(shells) >= shell else []
+    attr = "first_shell" if shell == 1 else "second_shell"
+    return [int(nb.index) for nb in getattr(site, attr, ())]
+
+
+def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=None, tol: float = 0.05,
+                  threshold: float | None = None, dispersion_warning: float = 0.1) -> list[DefectState]:
+    """Bands of the defect cell inside the host gap, with their character.
+
+    Parameters
+    ----------
+    case : DefectCase
+        Needs ``projections`` (defect cell, with occupations) and
+        ``host_projections`` or ``host_pdos`` for the band edges.
+    site : VacancySite, optional
+        For shell fractions and alignment; located from the structures when
+        omitted (if the case has a host structure).
+    edges : BandEdges, optional
+        Host band edges (default from ``host_projections``, else ``host_pdos``).
+    alignment : Alignment or float, optional
+        Shift onto the host scale (default :func:`align`; 0 with a note when
+        no reference is available).
+    tol : float
+        A state must lie more than ``tol`` (eV) inside the gap.
+    threshold : float, optional
+        DOS threshold for edges from ``host_pdos`` (states/eV).
+    dispersion_warning : float
+        Dispersion (eV) above which a note warns that the supercell is small.
+
+    Returns
+    -------
+    list of DefectState
+        Sorted by aligned energy; empty when no band lies in the gap.
+    """
+    proj = case.projections
+    if proj is None:
+        raise InputFormatError(case.source, None, "in-gap states need the defect cell's band projections "
+                               "(case.projections)", field="projections")
+    if proj.occupations is None:
+        raise InputFormatError(proj.source, None, "in-gap states need band occupations in the defect cell's "
+                               "projections (a file that records them, e.g. with occupations per band)",
+                               field="occupations")
+    notes = []
+    if edges is None:
+        if case.host_projections is not None:
+            edges = band_edges(case.host_projections)
+        elif case.host_pdos is not None:
+            edges = band_edges(case.host_pdos, threshold=threshold)
+        else:
+            raise InputFormatError(case.source, None, "band edges of the host are needed: attach host_projections "
+                                   "(band energies with occupations) or host_pdos", field="host_projections")
+    try:
+        site = resolve_site(case, site)
+    except OrbtoolError as exc:
+        notes.append(f"no vacancy site ({exc}); shell fractions left out")
+        site = None
+    if alignment is None:
+        try:
+            alignment = align(case, site=site) if site is not None else None
+        except OrbtoolError as exc:
+            notes.append(f"alignment failed ({exc})")
+            alignment = None
+        if alignment is None:
+            notes.append("energies NOT aligned: defect and host scales assumed equal")
+            alignment = 0.0
+    shift = float(getattr(alignment, "shift", alignment))
+    if hasattr(alignment, "method"):
+        notes.append(f"aligned by {shift:+.4f} eV: {alignment.method}")
+    notes.append(f"band edges: {edges.method}")
+
+    kw = proj.kweights
+    mean = np.einsum("k,skb->sb", kw, proj.energies)
+    aligned = mean + shift
+    inside = (aligned > edges.vbm + tol) & (aligned < edges.cbm - tol)
+    ls = proj.orbital_ls()
+    first = _shell_indices(site, 1) if site is not None else []
+    second = _shell_indices(site, 2) if site is not None else []
+    out = []
+    for s, b in zip(*np.nonzero(inside)):
+        s, b = int(s), int(b)
+        ao = proj.character(b, s)
+        atom_w = ao.sum(axis=1)
+        orb_w = {"s": 0.0, "p": 0.0, "d": 0.0}
+        for L in sorted(set(ls.tolist())):
+            if L >= 0:
+                orb_w[_L_NAMES[L]] = float(ao[:, ls == L].sum())
+        shells = {}
+        if site is not None:
+            f1, f2 = float(atom_w[first].sum()), float(atom_w[second].sum())
+            shells = {1: f1, 2: f2, "rest": 1.0 - f1 - f2}
+        ek = proj.energies[s, :, b]
+        disp = float(ek.max() - ek.min())
+        own = list(notes)
+        if disp > dispersion_warning:
+            own.append(f"dispersion {disp:.3f} eV > {dispersion_warning} eV: the state interacts with its periodic "
+                       "images; a larger supercell is advisable")
+        out.append(DefectState(energy=float(mean[s, b]), energy_aligned=float(aligned[s, b]),
+                               above_vbm=float(aligned[s, b] - edges.vbm), below_cbm=float(edges.cbm - aligned[s, b]),
+                               band=b, spin=s, occupation=proj.band_occupation(b, s),
+                               max_occupation=proj.max_occupation, dispersion=disp, atom_weights=atom_w,
+                               orbital_weights=orb_w, atom_orbital=ao, orbital_names=tuple(proj.orbitals),
+                               shell_fractions=shells, edges=edges, provenance=tuple(own)))
+    out.sort(key=lambda st: (st.energy_aligned, st.spin))
+    return out
