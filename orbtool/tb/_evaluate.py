@@ -61,7 +61,7 @@ class CompiledCluster:
 
     def _param(self, p, name, B):
         v = np.asarray(p[name], dtype=float)
-        return np.broadcast_to(v.reshape(-1), (B,)) if v.size > 1 else np.full(B, float(v))
+        return np.broadcast_to(v.reshape(-1), (B,)) if v.size > 1 else np.full(B, float(v.reshape(-1)[0]))
 
     def _batch(self, p):
         sizes = {np.asarray(v).size for v in p.values()} | {self.G}

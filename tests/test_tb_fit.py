@@ -1,0 +1,122 @@
+"""Fitter: parameter recovery with honest uncertainties (coverage over 50 seeds), bad input, diagnostics."""
+
+import numpy as np
+import pytest
+from tb_standin import breathe, make_site
+
+from orbtool.errors import FitError
+from orbtool.tb import ClusterModel, Target, fit
+
+TRUE = {"vbm": -7.3, "coupling_scale": 0.55, "n": 3.0, "s_fraction": 0.18}
+STRAINS = (-0.15, -0.1, -0.05, 0.0, 0.05, 0.1, 0.15)
+SIGMA = 0.02
+
+
+@pytest.fixture(scope="module")
+def family():
+    base = make_site()
+    sites = [breathe(base, s) for s in STRAINS]
+    model = ClusterModel.around(base, "hybrid")
+    truth = []
+    for k, st in enumerate(sites):
+        m = model.with_site(st)
+        lv = m.solve({"coupling_scale": TRUE["coupling_scale"], "n": TRUE["n"], "s_fraction": TRUE["s_fraction"]})
+        truth.append(float(lv.level[0] - TRUE["vbm"]))
+    return model, sites, np.array(truth)
+
+
+def _targets(sites, truth, rng):
+    noisy = truth + rng.normal(0, SIGMA, len(truth))
+    s_obs = TRUE["s_fraction"] + rng.normal(0, SIGMA, len(truth))
+    return [Target(f"c{k}", above_vbm=float(noisy[k]), sigma_level=SIGMA, s_fraction=float(s_obs[k]),
+                   sigma_s=SIGMA, gap=1.2, site=sites[k]) for k in range(len(sites))]
+
+
+@pytest.mark.slow
+def test_parameter_recovery_coverage(family):
+    # Coverage of Gaussian confidence intervals under a (nearly) linear model: the true value lies within
+    # ±2σ in ≈95 % of repetitions (standard least-squares theory, e.g. Press et al., Numerical Recipes
+    # 3rd ed., Sec. 15.6). Requirement of the issue: ≥ 90 % of 50 seeds for every parameter.
+    model, sites, truth = family
+    free = ["vbm", "coupling_scale", "n", "s_fraction"]
+    hits = {k: 0 for k in free}
+    for seed in range(50):
+        rng = np.random.default_rng(seed)
+        res = fit(model, _targets(sites, truth, rng), free=free, absolute_sigma=True,
+                  initial={"coupling_scale": 1.0, "n": 2.0, "s_fraction": 0.25})
+        for k in free:
+            hits[k] += abs(res.value(k) - TRUE[k]) <= 2 * res.error(k)
+    for k in free:
+        assert hits[k] >= 45, f"{k}: true value inside 2σ in only {hits[k]}/50 seeds"
+
+
+def test_fit_reports(family):
+    model, sites, truth = family
+    res = fit(model, _targets(sites, truth, np.random.default_rng(3)), free=["vbm", "coupling_scale", "n"],
+              fixed={"s_fraction": TRUE["s_fraction"]})
+    nval = 2 * len(STRAINS)  # one level and one s fraction per case
+    assert res.success and res.dof == nval - 3
+    # χ² of a correct model with correct σ is ~ dof (χ² distribution mean = dof): loose 5-σ bound
+    assert res.chi2 < res.dof + 5 * np.sqrt(2 * res.dof)
+    np.testing.assert_allclose(np.diag(res.correlation), 1.0)
+    assert res.aic == pytest.approx(res.chi2 + 2 * 3)  # Burnham & Anderson (2002): AIC = χ² + 2k
+    assert res.bic == pytest.approx(res.chi2 + 3 * np.log(nval))
+    d = res.to_dict()
+    assert d["free"] == res.free and len(d["sigma"]) == 3
+    assert "coupling_scale" in res.summary()
+    cv = res.cross_validate()
+    assert set(cv["errors"]) == {f"c{k}" for k in range(len(STRAINS))}
+    assert cv["rms"] < 5 * SIGMA  # leave-one-out errors of a correct model are of the noise size
+
+
+def test_unidentifiable_and_bounds(family):
+    model, sites, truth = family
+    # a rigid shift of Si and the VBM offset enter the level only through their difference:
+    # the identifiability report must name that combination (common practice: SVD of the Jacobian).
+    res = fit(model, _targets(sites, truth, np.random.default_rng(5)), free=["vbm", "shift_Si", "coupling_scale"],
+              fixed={"n": 3.0, "s_fraction": 0.18})
+    assert res.weak_directions, res.summary()
+    names = set(res.weak_directions[0][1])
+    assert {"vbm", "shift_Si"} <= names
+    # a bound that binds is reported, not hidden
+    res = fit(model, _targets(sites, truth, np.random.default_rng(6)), free=["vbm", "coupling_scale"],
+              bounds={"coupling_scale": (0.8, 2.0)}, fixed={"n": 3.0, "s_fraction": 0.18})
+    assert "coupling_scale" in res.at_bounds and "AT BOUND" in res.summary()
+
+
+def test_bad_inputs(family):
+    model, sites, truth = family
+    one = [Target("a", above_vbm=0.5)]
+    with pytest.raises(FitError, match="free parameters"):
+        fit(model, one, free=["vbm", "coupling_scale"])
+    with pytest.raises(FitError, match="unknown parameter"):
+        fit(model, one, free=["nonsense"])
+    with pytest.raises(FitError, match="finite"):
+        Target("a", above_vbm=float("nan"))
+    with pytest.raises(FitError, match="no targets"):
+        fit(model, [])
+
+
+def test_predict_and_inverse(family):
+    model, sites, truth = family
+    res = fit(model, _targets(sites, truth, np.random.default_rng(9)), free=["vbm", "coupling_scale", "n"],
+              fixed={"s_fraction": TRUE["s_fraction"]})
+    p = res.predict(case="c3")
+    # the prediction at the fitted geometry reproduces the fitted level of that case
+    assert p.level == pytest.approx(res.problem.model_values("c3", res.values[None])[0, 0, 0])
+    assert p.labels[int(np.argmin(np.abs(p.levels - p.level)))] == "t2"  # Coulson–Kearsley: t2 in the gap
+    # predict(geometry=Atoms) with the breathed cell equals the case built from that cell
+    p2 = res.predict(geometry=sites[0].defect, case="c3")
+    assert p2.level == pytest.approx(res.predict(case="c0").level, abs=1e-9)
+    assert p.sigma > 0 and p.verdict in ("deep", "deep — borderline within 2σ") or "shallow" in p.verdict
+    band = res.predict(case="c3", samples=400).band
+    assert band[0] < p.level < band[1]
+    changes = res.smallest_change_to_shallow(within=0.1, case="c3")
+    kinds = {c.knob for c in changes}
+    assert "mode:breathing" in kinds and "onsite_shift" in kinds
+    shift = next(c for c in changes if c.knob == "onsite_shift")
+    if shift.reached:  # the shifted model indeed sits within 0.1 eV of an edge
+        lv = res.predict(case="c3", onsite_shift=shift.change, labels=False).level
+        assert lv <= 0.1 + 1e-6 or 1.2 - lv <= 0.1 + 1e-6
+    text = res.explain(case="c3")
+    assert "above the VBM" in text and "breathing" in text

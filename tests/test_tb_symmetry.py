@@ -1,0 +1,68 @@
+"""Character tables (Cotton, Chemical Applications of Group Theory, 3rd ed., Appendix IIA; typed from
+memory) checked by the great orthogonality theorem and by textbook orbital decompositions."""
+
+import numpy as np
+import pytest
+from tb_standin import cubic_operations
+
+from orbtool.tb.symmetry import CHARACTER_TABLES, _d_matrix, class_columns, decompose
+
+OPS = cubic_operations()
+
+
+def _subgroup(pred):
+    return np.array([R for R in OPS if pred(R)])
+
+
+
+
+def _td():
+    # Td: proper rotations of the cube that are even permutations... simpler: ops mapping the tetrahedron
+    tet = np.array([[1, 1, 1], [1, -1, -1], [-1, 1, -1], [-1, -1, 1]], float)
+    return _subgroup(lambda R: np.all(np.min(np.linalg.norm((tet @ R.T)[:, None] - tet[None], axis=-1), 1) < 1e-9))
+
+
+GROUPS = {
+    "Oh": OPS,
+    "Td": _td(),
+    "D4h": _subgroup(lambda R: abs(R[2, 2]) == 1),
+    "D3d": _subgroup(lambda R: np.allclose(np.abs(R @ np.ones(3)), 1) and abs(np.sum(R @ np.ones(3))) == 3),
+    "C3v": np.array([R for R in _td() if np.allclose(R @ np.ones(3), 1)]),
+    "D2d": np.array([R for R in _td() if abs(R[2, 2]) == 1]),
+    "C2v": np.array([R for R in _td() if R[2, 2] == 1]),
+    "Cs": np.array([np.eye(3), np.diag([1.0, 1.0, -1.0])]),
+    "C1": np.eye(3)[None],
+}
+# textbook decompositions (Cotton, Appendix IIA, "linear functions / quadratic functions" columns)
+P_EXPECT = {"Oh": {"T1u": 1}, "Td": {"T2": 1}, "D4h": {"A2u": 1, "Eu": 1}, "D3d": {"A2u": 1, "Eu": 1},
+            "C3v": {"A1": 1, "E": 1}, "D2d": {"B2": 1, "E": 1}, "C2v": {"A1": 1, "B1": 1, "B2": 1},
+            "Cs": {"A'": 2, "A''": 1}, "C1": {"A": 3}}
+D_EXPECT = {"Oh": {"Eg": 1, "T2g": 1}, "Td": {"E": 1, "T2": 1}, "D3d": {"A1g": 1, "Eg": 2},
+            "C3v": {"A1": 1, "E": 2}, "Cs": {"A'": 3, "A''": 2}, "C1": {"A": 5}}
+
+
+@pytest.mark.parametrize("group", sorted(CHARACTER_TABLES))
+def test_orthogonality(group):
+    cols, table = CHARACTER_TABLES[group]
+    sizes = np.array([s for _, s in cols])
+    order = sizes.sum()
+    X = np.array(list(table.values()), float)
+    np.testing.assert_allclose((X * sizes) @ X.T, order * np.eye(len(X)))  # great orthogonality theorem
+    assert len(X) == len(cols)  # number of irreps = number of classes
+    assert len(GROUPS[group]) == order
+
+
+@pytest.mark.parametrize("group", sorted(CHARACTER_TABLES))
+def test_p_and_d_decompositions(group):
+    ops = GROUPS[group]
+    classes, cols = class_columns(group, ops)
+    chars_p = [(c, float(np.trace(ops[c[0]])), k) for c, k in zip(classes, cols)]
+    got = {k: round(v) for k, v in decompose(group, chars_p, classes).items() if round(v)}
+    assert got == P_EXPECT[group]
+    chars_d = [(c, float(np.trace(_d_matrix(ops[c[0]]))), k) for c, k in zip(classes, cols)]
+    got_d = {k: round(v) for k, v in decompose(group, chars_d, classes).items() if abs(v) > 1e-9}
+    assert all(abs(v - round(v)) < 1e-9 for v in decompose(group, chars_d, classes).values())
+    if group in D_EXPECT:
+        assert got_d == D_EXPECT[group]
+    else:
+        assert sum(v * (2 if k.startswith("E") else 1) for k, v in got_d.items()) == 5
