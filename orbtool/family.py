@@ -283,7 +283,7 @@ class FamilyAnalysis:
         """One flat row per case: labels, geometry, state, character, levels."""
         rows = []
         for r in self.results:
-            row: dict[str, Any] = {"case": r.name, "charge": r.charge, **{k: v for k, v in r.labels.items()}}
+            row: dict[str, Any] = {"name": r.name, "charge": r.charge, **{k: v for k, v in r.labels.items()}}
             row["status"] = "ok" if r.ok else "error"
             row["error"] = r.error or ""
             if r.site is not None:
@@ -295,7 +295,7 @@ class FamilyAnalysis:
             row["n_in_gap"] = len(r.states)
             s = r.state
             if s is not None:
-                row.update(level_above_vbm=_num(s.above_vbm), level_below_cbm=_num(s.below_cbm),
+                row.update(above_vbm=_num(s.above_vbm), below_cbm=_num(s.below_cbm),
                            occupation=_num(s.occupation), dispersion=_num(s.dispersion),
                            gap=_num(s.edges.gap) if getattr(s, "edges", None) else None,
                            shell1_fraction=_num(s.shell_fractions.get(1)),
@@ -347,13 +347,13 @@ class FamilyAnalysis:
         cases with a defect state (n ≥ 3), and, when a shared fit exists, the
         model's split of the level change into a structure and a chemistry
         part (see :meth:`knob_effects`)."""
-        rows = [r for r in self.table() if r.get("level_above_vbm") is not None]
+        rows = [r for r in self.table() if r.get("above_vbm") is not None]
         out: dict[str, Any] = {"n": len(rows), "correlation": {}}
         if len(rows) >= 3:
-            y = np.array([r["level_above_vbm"] for r in rows])
+            y = np.array([r["above_vbm"] for r in rows])
             for k in rows[0]:
                 vals = [r.get(k) for r in rows]
-                if k in ("level_above_vbm", "level_below_cbm", "charge") or not all(
+                if k in ("above_vbm", "below_cbm", "charge") or not all(
                         isinstance(v, float) for v in vals):
                     continue
                 x = np.array(vals)

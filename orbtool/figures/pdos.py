@@ -1,0 +1,66 @@
+"""PDOS of the first-shell atoms, host vs defect, on the host's energy scale."""
+
+from __future__ import annotations
+
+from .. import style
+from .export import new_figure
+
+
+def pdos_figure(case, site, states=(), *, edges=None, alignment=None, window=None, width: str = "single",
+                broadening_note: bool = True):
+    """First-shell projected DOS of host (dashed) and defect cell (solid), per l.
+
+    Energies are referred to the host VBM; the defect cell's energies are
+    shifted by the alignment (``orbtool.analysis.align``); the gap is left
+    white between the shaded band regions and every in-gap state is marked
+    with its occupation.
+    """
+    from ..analysis import align, band_edges
+    if case.defect_pdos is None:
+        raise ValueError(f"case {case.name!r} has no defect PDOS")
+    if edges is None:
+        edges = states[0].edges if states else band_edges(case.host_projections or case.host_pdos)
+    if alignment is None:
+        alignment = align(case, site)
+    shift = float(alignment.shift)
+    vbm, cbm = float(edges.vbm), float(edges.cbm)
+    window = window or (-4.0, (cbm - vbm) + 2.0)
+    fig = new_figure(width, aspect=0.75)
+    ax = fig.add_subplot(111)
+    first_def = [n.index for n in site.first_shell]
+    first_host = [n.host_index for n in site.first_shell]
+    ymax = 0.0
+    for l, name in ((0, "s"), (1, "p"), (2, "d")):
+        col = style.CATEGORICAL[l]
+        for pd, idx, role, sh in ((case.host_pdos, first_host, "host", 0.0), (case.defect_pdos, first_def, "defect",
+                                                                                shift)):
+            if pd is None:
+                continue
+            try:
+                y = pd.select(atoms=idx, l=l)
+            except KeyError:
+                continue
+            e = pd.energies + sh - vbm
+            m = (e >= window[0]) & (e <= window[1])
+            if not m.any() or y[m].max() <= 0:
+                continue
+            ymax = max(ymax, float(y[m].max()))
+            ax.plot(e[m], y[m], color=col, ls=style.mpl_dash(role), lw=1.0 if role == "host" else 1.4,
+                    label=f"{name} ({role})")
+    ymax = ymax or 1.0
+    ax.axvspan(window[0], 0.0, color=style.VALENCE, lw=0, zorder=0)
+    ax.axvspan(cbm - vbm, window[1], color=style.CONDUCTION, lw=0, zorder=0)
+    for s in states:
+        x = float(s.above_vbm)
+        ax.axvline(x, color=style.LEVEL, lw=1.2)
+        ax.text(x, ymax * 1.02, f"{s.occupation:.2g} e⁻", color=style.LEVEL, ha="center", va="bottom", fontsize=6)
+    ax.set_xlim(*window)
+    ax.set_ylim(0, ymax * 1.15)
+    ax.set_xlabel(style.ENERGY_LABEL)
+    ax.set_ylabel("first-shell PDOS (states/eV)")
+    ax.legend(loc="upper left", ncols=2)
+    ax.set_title(f"{case.name}: {len(first_def)} first-shell atoms; alignment {shift:+.3f} eV ({alignment.method})",
+                 loc="left", fontsize=7)
+    return fig
+
+

@@ -1,0 +1,165 @@
+"""The whole job in one call: manifest in → table, fit, levels, figures, report out.
+
+Used by ``orbtool analyze``, ``orbtool fit`` and ``orbtool demo``.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from pathlib import Path
+
+from .errors import OrbtoolError
+from .outputs import OutputFolder
+
+__all__ = ["run_analysis", "run_fit", "demo_manifest", "MODEL_CAUTION", "toxic_caution"]
+
+MODEL_CAUTION = ("Model predictions are not measurements: the fitted tight-binding model interpolates the DFT data "
+                 "it was given and inherits its approximations (band gaps, self-interaction). Confirm candidates "
+                 "with full calculations and experiment.")
+
+
+def toxic_caution(elements) -> str:
+    """Caution text for a family containing toxic elements (empty if none)."""
+    if not elements:
+        return ""
+    return (f"This family contains {', '.join(elements)}: toxic elements whose synthesis, handling and disposal "
+            "are governed by local regulations and licensed laboratory practice. orbtool gives no advice on "
+            "handling; follow your institution's safety office.")
+
+
+def demo_manifest() -> Path:
+    """Path of the bundled demo family's manifest."""
+    p = Path(__file__).parent / "demo" / "data" / "family.toml"
+    if not p.exists():
+        raise OrbtoolError(f"{p}: the demo data are missing; run `make demo-data` to compute them")
+    return p
+
+
+def _say(quiet, msg):
+    if not quiet:
+        print(msg, flush=True)
+
+
+def _analyse(manifest, workers, scheduler, quiet):
+    from .family import analyze_family
+    from .io import load_family
+    fam = load_family(manifest)
+    _say(quiet, f"family {fam.name!r}: {len(fam)} cases from {manifest}")
+    res = analyze_family(fam, workers=workers, client=scheduler, progress=not quiet)
+    for name, err in res.errors.items():
+        _say(quiet, f"  case {name}: skipped — {err}")
+    return fam, res
+
+
+def run_fit(manifest, workers=None, quiet=False):
+    """Analyse the family and return the shared fit (FitResult)."""
+    _, res = _analyse(manifest, workers, None, quiet)
+    return res.shared_fit()
+
+
+def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, figures=True, quiet=False,
+                 demo=False) -> Path:
+    """Run the whole pipeline on ``manifest`` and write results into ``out``.
+
+    Writes: ``family_table.csv``, ``family.json`` (table, fit, levels,
+    trends), ``fit_summary.txt`` (fit summary + explanation + inverse
+    question), ``figures/`` (mechanism, PDOS, state slice, trend; SVG, PDF,
+    PNG) and ``report.html`` (standalone, opens offline).
+    """
+    t0 = time.perf_counter()
+    folder = OutputFolder(out, force=force)
+    fam, res = _analyse(manifest, workers, scheduler, quiet)
+    fit = None
+    try:
+        fit = res.shared_fit()
+    except OrbtoolError as exc:
+        res.notes.append(f"shared fit not possible: {exc}")
+    res.transition_levels()
+    trends = res.trends()
+    folder.write_text("family_table.csv", res.to_csv())
+    doc = json.loads(res.to_json())
+    from .family import clean_for_json
+    doc["trends"] = clean_for_json(trends)
+    folder.write_text("family.json", json.dumps(doc, indent=1))
+    texts = [f"orbtool analysis of {fam.name!r} ({len(fam)} cases)", ""]
+    if demo:
+        texts += ["NOTE: the demo family is MODEL DATA computed with orbtool's own supercell tight-binding "
+                  "generator for invented compounds; it shows the workflow, not real materials.", ""]
+    if fit is not None:
+        texts += [fit.summary(), "", "Mechanism", "---------", fit.explain(), ""]
+        try:
+            inv = fit.smallest_change_to_shallow()
+            texts += ["What would make it shallow?", "---------------------------", inv.summary()
+                      if hasattr(inv, "summary") else str(inv), ""]
+        except OrbtoolError as exc:
+            texts += [f"Inverse question not answered: {exc}", ""]
+    for key, dl in res.levels.items():
+        texts += [dl.summary(), ""]
+    texts += ["Cautions", "--------", MODEL_CAUTION]
+    tox = toxic_caution(res.toxic_elements())
+    if tox:
+        texts.append(tox)
+    texts += [f"note: {n}" for n in res.notes]
+    folder.write_text("fit_summary.txt", "\n".join(texts) + "\n")
+    if figures:
+        _figures(folder, fam, res, fit, quiet)
+    from .report import family_report
+    folder.write_text("report.html", family_report(fam, res, fit, trends, demo=demo))
+    _say(quiet, f"wrote {len(folder.written)} files to {folder.root} in {time.perf_counter() - t0:.1f} s")
+    return folder.root
+
+
+def _representative(res, fit):
+    """The case the single-case figures show: the deepest fitted level."""
+    cands = [r for r in res.results if r.ok and r.state is not None and (fit is None or r.name in res.fit_cases)]
+    if not cands:
+        return None
+    return max(cands, key=lambda r: min(r.state.above_vbm, r.state.below_cbm))
+
+
+def _figures(folder, fam, res, fit, quiet):
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from . import figures as F
+    from .mechanism import mechanism
+    rep = _representative(res, fit)
+    made = []
+    if rep is not None:
+        case = fam[rep.name]
+        if fit is not None:
+            knobs = {}
+            for entry in res.knob_effects():
+                if entry["case"] == rep.name:
+                    knobs = {("breathe −5 %" if k == "breathe_-5%" else k.replace("swap_", "").replace("->", "→")): v
+                             for k, v in entry.items() if k not in ("case", "level") and v is not None}
+            fig = F.mechanism_figure(mechanism(fit, rep.name, knobs=knobs))
+            made += _save(F, folder, fig, "mechanism")
+            plt.close(fig)
+        if case.defect_pdos is not None:
+            fig = F.pdos_figure(case, rep.site, rep.states)
+            made += _save(F, folder, fig, "pdos_first_shell")
+            plt.close(fig)
+        if "state" in case.grids:
+            fig = F.state_slice_figure(case.grids["state"], rep.site)
+            made += _save(F, folder, fig, "state_slice")
+            plt.close(fig)
+    rows = res.table()
+    x = "pair_distance_mean"
+    keys = [k for k in rows[0] if k.startswith("first_shell") or "distance" in k] if rows else []
+    if rows and x not in rows[0] and keys:
+        x = keys[0]
+    if rows:
+        fig = F.trend_figure(rows, x)
+        made += _save(F, folder, fig, "family_trend")
+        plt.close(fig)
+    _say(quiet, f"  figures: {len(made)} files")
+
+
+def _save(F, folder, fig, stem):
+    for fmt in ("svg", "pdf", "png"):
+        folder.path(f"figures/{stem}.{fmt}")
+    return F.save_figure(fig, folder.root / "figures" / stem)

@@ -1,0 +1,131 @@
+"""Standalone HTML reports (bokeh with inline resources: they open offline).
+
+:func:`family_report` — the family table, the level-depth board, the fit and
+its explanation, transition levels with SRH factors, a level diagram and a
+PDOS overlay of the representative case, and the cautions.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+
+__all__ = ["family_report"]
+
+_CSS = """
+body{font-family:'DejaVu Sans',sans-serif;color:#202033;background:#fbfaf7;margin:2em auto;max-width:1100px;
+line-height:1.45}
+h1{font-size:1.6em;margin-bottom:.2em} h2{font-size:1.2em;border-bottom:1px solid #e4e1d8;padding-bottom:.2em;
+margin-top:1.6em} pre{background:#f3f1ea;padding:.8em;overflow-x:auto;font-size:.85em}
+table.t{border-collapse:collapse;font-size:.8em} table.t td,table.t th{border:1px solid #e4e1d8;padding:2px 6px;
+text-align:right} table.t th{background:#efece3} .caution{border-left:5px solid #7a2614;background:#f7ece8;
+padding:.6em 1em;margin:1em 0} .note{border-left:5px solid #1b5e8a;background:#eaf1f6;padding:.6em 1em}
+"""
+
+_TABLE_KEYS = ("name", "charge", "motif", "cation", "anion", "vacancy", "variant", "removed", "point_group",
+               "n_first_shell", "site_distance_mean", "pair_distance_mean", "above_vbm", "below_cbm", "gap",
+               "occupation", "shell1_fraction", "s_weight", "p_weight", "srh_vs_midgap", "transition_levels",
+               "status", "error")
+
+
+def _fmt(v):
+    if v is None:
+        return ""
+    if isinstance(v, float):
+        if not math.isfinite(v):
+            return ""
+        return f"{v:.3g}" if abs(v) >= 1e3 or (abs(v) < 1e-2 and v != 0) else f"{v:.3f}"
+    return html.escape(str(v))
+
+
+def _table(rows):
+    keys = [k for k in _TABLE_KEYS if any(k in r for r in rows)]
+    head = "".join(f"<th>{html.escape(k.replace('_', ' '))}</th>" for k in keys)
+    body = "".join("<tr>" + "".join(f"<td>{_fmt(r.get(k))}</td>" for k in keys) + "</tr>" for r in rows)
+    return f"<table class='t'><tr>{head}</tr>{body}</table>"
+
+
+def _bokeh_parts(fam, res, fit, rep):
+    """(script, divs) of the interactive figures, or ('', {}) if bokeh cannot build them."""
+    from bokeh.embed import components
+
+    from . import views
+    figs = {}
+    rows = res.table()
+    cols = views.family_columns(rows)
+    x = "pair_distance_mean" if "pair_distance_mean" in cols else views.family.numeric_keys(cols)[0]
+    board = views.family_board(cols, x=x, y="above_vbm")
+    figs["board"] = board[0] if isinstance(board, tuple) else board
+    if fit is not None and rep is not None:
+        pred = fit.predict(case=rep.name)
+        data = views.level_diagram_data(pred)
+        cbm = pred.cbm if math.isfinite(pred.cbm) else pred.level + 1
+        figs["levels"] = views.level_diagram(data, y_range=(-2.0, cbm + 1.5),
+                                             title=f"{rep.name}: fitted levels")
+    if rep is not None:
+        case = fam[rep.name]
+        if case.defect_pdos is not None and rep.site is not None:
+            from .analysis import align
+            picks = views.channel_choices(case.defect_pdos, rep.site)
+            first = {k: v for k, v in picks.items() if "shell 1" in k or k == "total"} or dict(list(picks.items())[:3])
+            edges = rep.state.edges if rep.state is not None else None
+            shift = align(case, rep.site).shift
+            vbm = edges.vbm if edges is not None else 0.0
+            lines = views.pdos_curves(first, case.defect_pdos, case.host_pdos, defect_shift=shift, vbm=vbm)
+            ymax = max((max(y) for y in lines["ys"]), default=1.0)
+            st = views.states_data(rep.states, vbm_shift=vbm, ymax=0.9 * ymax)
+            figs["pdos"] = views.pdos_figure(lines, st, gap=edges.gap if edges is not None else None,
+                                             title=f"{rep.name}: PDOS, host (dashed) vs defect (solid)")
+    script, divs = components(figs)
+    return script, divs
+
+
+def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str:
+    """The HTML text of a family report (inline bokeh; no network needed)."""
+    from bokeh.resources import INLINE
+
+    from .pipeline import MODEL_CAUTION, _representative, toxic_caution
+    rep = _representative(res, fit)
+    parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>orbtool report: "
+             f"{html.escape(fam.name)}</title><style>{_CSS}</style>{INLINE.render()}"]
+    try:
+        script, divs = _bokeh_parts(fam, res, fit, rep)
+    except Exception as exc:  # a figure must never cost the user the report
+        script, divs = "", {}
+        res.notes.append(f"interactive figures skipped: {type(exc).__name__}: {exc}")
+    parts.append(script + "</head><body>")
+    parts.append(f"<h1>orbtool report — {html.escape(fam.name)}</h1>")
+    parts.append(f"<p>{len(fam)} cases; manifest <code>{html.escape(str(fam.source or ''))}</code>.</p>")
+    if demo:
+        parts.append("<div class='note'><b>Demo data.</b> This family is <b>model data</b> computed with orbtool's own "
+                     "supercell tight-binding generator for <b>invented compounds</b>; it demonstrates the workflow "
+                     "and says nothing about real materials.</div>")
+    parts.append(f"<div class='caution'><b>Caution.</b> {html.escape(MODEL_CAUTION)}</div>")
+    tox = toxic_caution(res.toxic_elements())
+    if tox:
+        parts.append(f"<div class='caution'><b>Toxic elements.</b> {html.escape(tox)}</div>")
+    parts.append("<h2>Family table</h2>" + _table(res.table()))
+    if "board" in divs:
+        parts.append("<h2>Level depth across the family</h2>" + divs["board"])
+    if trends and trends.get("correlation"):
+        top = sorted(trends["correlation"].items(), key=lambda kv: -abs(kv[1]))[:6]
+        parts.append("<p>Strongest correlations of the level (eV above VBM) with descriptors (Pearson r, "
+                     f"n = {trends['n']}): " + ", ".join(f"{html.escape(k)} {v:+.2f}" for k, v in top) + ".</p>")
+    if fit is not None:
+        parts.append("<h2>Shared tight-binding fit</h2><pre>" + html.escape(fit.summary()) + "</pre>")
+        parts.append("<h2>Mechanism</h2><pre>" + html.escape(fit.explain()) + "</pre>")
+    if "levels" in divs:
+        parts.append(divs["levels"])
+    if "pdos" in divs:
+        parts.append("<h2>Projected DOS of the representative case</h2>" + divs["pdos"])
+    if res.levels:
+        parts.append("<h2>Kohn–Sham state, transition levels and SRH factor</h2>")
+        for dl in res.levels.values():
+            parts.append("<pre>" + html.escape(dl.summary()) + "</pre>")
+    if res.errors or res.notes:
+        parts.append("<h2>Problems and notes</h2><ul>" +
+                     "".join(f"<li>{html.escape(k)}: {html.escape(v)}</li>" for k, v in res.errors.items()) +
+                     "".join(f"<li>{html.escape(n)}</li>" for n in res.notes) + "</ul>")
+    parts.append("<p style='font-size:.8em;color:#8a8a80'>Written by orbtool. Figures for print are in "
+                 "<code>figures/</code> beside this file.</p></body></html>")
+    return "\n".join(parts)
