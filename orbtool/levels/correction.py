@@ -136,8 +136,8 @@ def _shortest_lattice_vector(cell: np.ndarray) -> float:
     return float(np.linalg.norm(n @ cell, axis=1).min())
 
 
-def potential_alignment(host: Grid, defect: Grid, defect_position, *, far_radius: float | None = None
-                        ) -> PotentialAlignment:
+def potential_alignment(host: Grid, defect: Grid, defect_position, *, far_radius: float | None = None,
+                        model=None) -> PotentialAlignment:
     """Average ``V_defect − V_host`` over points far from the defect.
 
     Parameters
@@ -151,6 +151,10 @@ def potential_alignment(host: Grid, defect: Grid, defect_position, *, far_radius
         Use points at least this far from the defect, Å. Default: 0.4 × the
         shortest lattice vector (80 % of the radius of the sphere inscribed
         in the Wigner–Seitz cell).
+    model : ndarray of the grid's shape, optional
+        Model potential energy of an electron (eV) due to the defect charge
+        (e.g. :func:`~orbtool.levels.model_potential.point_charge_potential_grid`),
+        subtracted from the difference before averaging.
     """
     for g, role in ((host, "host"), (defect, "defect")):
         if not isinstance(g, Grid):
@@ -178,7 +182,13 @@ def potential_alignment(host: Grid, defect: Grid, defect_position, *, far_radius
     if n_far == 0:
         raise ModelError(f"no grid point lies farther than {far_radius:.3f} Å from the defect; "
                          "choose a smaller far_radius")
-    diff = (np.asarray(defect.values, dtype=float) - np.asarray(host.values, dtype=float))[far]
+    diff = np.asarray(defect.values, dtype=float) - np.asarray(host.values, dtype=float)
+    if model is not None:
+        model = np.asarray(model, dtype=float)
+        if model.shape != diff.shape:
+            raise ModelError(f"model potential shape {model.shape} differs from the grids' {diff.shape}")
+        diff = diff - model
+    diff = diff[far]
     return PotentialAlignment(delta_v=float(diff.mean()), spread=float(diff.std()), far_radius=float(far_radius),
                               n_points=n_far, fraction=n_far / defect.values.size)
 
@@ -242,7 +252,8 @@ class ChargeCorrection:
 
 def charge_correction(charge: int, cell, dielectric, *, scheme: str = "ewald", quadrupole: float | None = None,
                       host_potential: Grid | None = None, defect_potential: Grid | None = None,
-                      defect_position=None, far_radius: float | None = None) -> ChargeCorrection:
+                      defect_position=None, far_radius: float | None = None, subtract_model: bool = False
+                      ) -> ChargeCorrection:
     """Finite-size correction of a charged defect supercell.
 
     Parameters
@@ -266,6 +277,11 @@ def charge_correction(charge: int, cell, dielectric, *, scheme: str = "ewald", q
         Defect centre (Å), needed for the alignment term.
     far_radius : float, optional
         See :func:`potential_alignment`.
+    subtract_model : bool
+        Subtract the potential of the screened periodic point charge before
+        averaging (Freysoldt, Neugebauer & Van de Walle, Phys. Rev. Lett. 102,
+        016402 (2009)); otherwise the plain difference is averaged (Lany &
+        Zunger 2008).
     """
     q = _integer_charge(charge)
     eps = dielectric_tensor(dielectric, minimum=1.0)
@@ -298,13 +314,23 @@ def charge_correction(charge: int, cell, dielectric, *, scheme: str = "ewald", q
             notes.append("quadrupole term not included (no quadrupole moment given)")
     have = (host_potential is not None, defect_potential is not None)
     if all(have) and q != 0:
+        if not np.allclose(defect_potential.cell, cell, atol=1e-4):
+            raise InputFormatError(defect_potential.source, None, "the potential grid's cell differs from the "
+                                   "supercell given for the correction", field="cell")
         if defect_position is None:
             raise ModelError("potential alignment needs defect_position (Å)")
-        pa = potential_alignment(host_potential, defect_potential, defect_position, far_radius=far_radius)
+        model = None
+        if subtract_model:
+            from .model_potential import point_charge_potential_grid
+            centre = np.asarray(getattr(defect_position, "position", defect_position), dtype=float)
+            model = point_charge_potential_grid(defect_potential, centre, q, eps)
+        pa = potential_alignment(host_potential, defect_potential, defect_position, far_radius=far_radius,
+                                 model=model)
         terms["alignment"] = q * pa.delta_v
         details["alignment"] = pa
-        notes.append(f"alignment: q·ΔV, ΔV = {pa.delta_v:+.4f} ± {pa.spread:.4f} eV over {pa.n_points} points "
-                     f"farther than {pa.far_radius:.2f} Å from the defect")
+        what = "V_def − V_host − V_model" if subtract_model else "V_def − V_host"
+        notes.append(f"alignment: q·ΔV, ΔV = ⟨{what}⟩ = {pa.delta_v:+.4f} ± {pa.spread:.4f} eV over "
+                     f"{pa.n_points} points farther than {pa.far_radius:.2f} Å from the defect")
     elif any(have) and not all(have):
         raise ModelError("potential alignment needs both host_potential and defect_potential")
     elif q != 0:
