@@ -61,7 +61,10 @@ def dielectric_tensor(dielectric, *, minimum: float | None = None, field: str = 
         Non-finite, non-symmetric, not positive definite, or an eigenvalue
         not above ``minimum``.
     """
-    eps = np.asarray(dielectric, dtype=float)
+    try:
+        eps = np.asarray(dielectric, dtype=float)
+    except (TypeError, ValueError):
+        raise ModelError(f"{field}: expected a number or a 3×3 tensor, got {dielectric!r}") from None
     if eps.ndim == 0:
         eps = float(eps) * np.eye(3)
     if eps.shape != (3, 3):
@@ -94,15 +97,13 @@ def _cheapest_eta(cell, recip, lam, n, x, det_eps, vol) -> float:
     """
     eta0 = math.sqrt(math.pi) * (max(n, 1) * det_eps / vol ** 2) ** (1.0 / 6.0)
     npair = n * (n + 1) / 2
-    best, best_cost = eta0, math.inf
-    for eta in eta0 * np.geomspace(0.125, 8.0, 25):
-        n_real = np.prod(2 * _image_range(x / eta * math.sqrt(lam.max()), recip) + 1)
-        gcut = 2.0 * eta * x / math.sqrt(lam.min())
-        n_recip = np.prod(2 * np.ceil(gcut * np.linalg.norm(cell, axis=1) / (2 * math.pi)) + 1)
-        cost = 3.0 * npair * n_real + 0.1 * max(n, 1) * n_recip  # erfc costs more than a BLAS multiply-add
-        if cost < best_cost:
-            best, best_cost = float(eta), cost
-    return best
+    etas = eta0 * np.geomspace(0.125, 8.0, 25)
+    rcut = x * math.sqrt(lam.max()) / etas
+    n_real = np.prod(2 * np.ceil(np.outer(rcut, np.linalg.norm(recip, axis=1)) / (2 * math.pi) + 0.5) + 1, axis=1)
+    gcut = 2.0 * etas * x / math.sqrt(lam.min())
+    n_recip = np.prod(2 * np.ceil(np.outer(gcut, np.linalg.norm(cell, axis=1)) / (2 * math.pi)) + 1, axis=1)
+    cost = 3.0 * npair * n_real + 0.1 * max(n, 1) * n_recip  # erfc costs more than a BLAS multiply-add
+    return float(etas[np.argmin(cost)])
 
 
 def _int_ranges(nmax):
