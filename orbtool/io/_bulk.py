@@ -261,7 +261,9 @@ class ValueReader:
     def at_end(self) -> bool:
         """True if only whitespace remains."""
         while True:
-            if self.pending.strip():
+            stripped = self.pending.lstrip()
+            if stripped:
+                self.line += self.pending[:len(self.pending) - len(stripped)].count(b"\n")
                 return False
             self.pending = b""
             if not self._more():

@@ -11,6 +11,7 @@ import gzip
 import io
 import lzma
 import os
+import zlib
 from pathlib import Path
 
 from ..errors import InputFormatError
@@ -45,16 +46,44 @@ def strip_compression(name: str) -> str:
     return name
 
 
+class _Stream:
+    """A binary file whose read errors (damaged compressed data) become InputFormatError."""
+
+    def __init__(self, fh, path, kind):
+        self.fh, self.path, self.kind = fh, path, kind
+
+    def read(self, n: int = -1) -> bytes:
+        try:
+            return self.fh.read(n)
+        except (OSError, EOFError, lzma.LZMAError, zlib.error, ValueError) as exc:
+            what = f"damaged {self.kind} data" if self.kind else "read error"
+            raise InputFormatError(self.path, None, f"{what} ({exc})") from None
+
+    def close(self):
+        self.fh.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
 def open_binary(path):
-    """Open ``path`` for binary reading, decompressing on the fly."""
+    """Open ``path`` for binary reading, decompressing on the fly (errors → InputFormatError)."""
     kind = compression_of(path)
-    if kind == "gzip":
-        return gzip.open(path, "rb")
-    if kind == "bz2":
-        return bz2.open(path, "rb")
-    if kind == "xz":
-        return lzma.open(path, "rb")
-    return open(path, "rb")
+    try:
+        if kind == "gzip":
+            fh = gzip.open(path, "rb")
+        elif kind == "bz2":
+            fh = bz2.open(path, "rb")
+        elif kind == "xz":
+            fh = lzma.open(path, "rb")
+        else:
+            fh = open(path, "rb")
+    except OSError as exc:
+        raise InputFormatError(path, None, f"cannot open file ({exc})") from None
+    return _Stream(fh, path, kind)
 
 
 def file_size(path) -> int:
@@ -67,18 +96,15 @@ def read_head(path, nbytes: int = 8192) -> bytes:
     try:
         with open_binary(path) as fh:
             return fh.read(nbytes)
-    except (OSError, EOFError, lzma.LZMAError, InputFormatError):
+    except InputFormatError:
         return b""
 
 
 def read_text(path) -> str:
     """Whole decompressed content as text (for small files: DOS, projections,
     structures). Undecodable bytes raise :class:`InputFormatError`."""
-    try:
-        with open_binary(path) as fh:
-            raw = fh.read()
-    except (OSError, EOFError, lzma.LZMAError) as exc:
-        raise InputFormatError(path, None, f"cannot read file ({exc})") from None
+    with open_binary(path) as fh:
+        raw = fh.read()
     if b"\x00" in raw:
         raise InputFormatError(path, None, "binary content (NUL bytes) where a text file was expected")
     try:
