@@ -141,7 +141,7 @@ def nearest_atom_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, 
     voxel = _voxel(cell, shape0)
     nat = len(positions)
     if levels is None:
-        levels = int(np.clip(np.floor(np.log2(max(1, shape0.min() / 8))), 0, 3))
+        levels = int(np.clip(np.floor(np.log2(max(1, shape0.min() / 8))), 0, 4))
     top = 2 ** levels
     padded = -(-shape0 // top) * top
     if np.any(padded != shape0):
@@ -202,7 +202,7 @@ def nearest_atom_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, 
             near = np.argmin(score, axis=1)
             rows = np.arange(len(gidx))
             a = gcand[rows, near]
-            lin = gidx @ bstr
+            lin = (gidx[:, 0] * bstr[0] + gidx[:, 1] * bstr[1]) + gidx[:, 2]
             if level == 0 or gcand.shape[1] == 1:
                 out += np.bincount(owner[a], weights=bflat[lin], minlength=nat + 1)
                 continue
@@ -221,12 +221,41 @@ def nearest_atom_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, 
             for c in np.unique(count):
                 m = count == c
                 cc = cs[m][kc[m]].reshape(-1, c)
+                if level == 1:
+                    out += _finish_points(ic[m], cc, proj, norm2, owner, sums[0], children, nat + 1)
+                    continue
                 child = (ic[m][:, None, :] * 2 + children[None, :, :]).reshape(-1, 3)
                 next_groups.setdefault(int(c), []).append((child, np.repeat(cc, 8, axis=0)))
         groups = next_groups
         if not groups:
             break
     return out[:nat]
+
+
+def _finish_points(blocks, cand, proj, norm2, owner, values, children, nbin):
+    """Nearest-candidate assignment of the 8 points of each 2×2×2 block.
+
+    The score of candidate j at point x = 2I + o splits into a per-block part
+    |a_j|² − 2(2I)·proj_j and a per-offset part −2 o·proj_j, so the 8 points
+    are handled without repeating the candidate lists.
+    """
+    pc = proj[cand]                                                   # (n, c, 3)
+    base = 2 * blocks
+    score = norm2[cand] - 2.0 * np.einsum("nci,ni->nc", pc, base.astype(float))
+    n, c = cand.shape
+    # one matrix product for all (block, candidate) rows: (n·c, 3) @ (3, 8)
+    score8 = score[:, :, None] - 2.0 * (pc.reshape(n * c, 3) @ children.T.astype(float)).reshape(n, c, 8)
+    if c == 2:
+        second = score8[:, 1, :] < score8[:, 0, :]
+        label = np.where(second, owner[cand[:, 1]][:, None], owner[cand[:, 0]][:, None])
+    else:
+        best = np.argmin(score8, axis=1)                                # (n, 8)
+        label = owner[np.take_along_axis(cand, best, axis=1)]
+    n2, n3 = values.shape[1], values.shape[2]
+    lin0 = (base[:, 0] * n2 + base[:, 1]) * n3 + base[:, 2]
+    offl = (children[:, 0] * n2 + children[:, 1]) * n3 + children[:, 2]
+    vals = values.reshape(-1)[lin0[:, None] + offl[None, :]]
+    return np.bincount(label.ravel(), weights=vals.ravel(), minlength=nbin)
 
 
 def _half_diagonal(voxel: np.ndarray, size: int) -> float:
