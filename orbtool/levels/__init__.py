@@ -13,6 +13,7 @@
   state, transition levels and SRH factors of one defect side by side.
 """
 
+from .charge_state import ChargeState
 from .chempot import ChemicalPotentials, Phase, StabilityRegion, stability_region
 from .correction import (
     ChargeCorrection,
@@ -24,7 +25,7 @@ from .correction import (
 )
 from .defect_levels import DefectLevels, LevelEntry
 from .ewald import dielectric_tensor, ewald_energy, lattice_madelung_alpha
-from .formation import ChargeState, FormationDiagram, TransitionLevel, formation_energies
+from .formation import FormationDiagram, TransitionLevel, formation_energies
 from .model_potential import ewald_potential, point_charge_potential_grid
 from .srh import (
     LifetimeScan,

@@ -25,97 +25,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputFormatError, ModelError
+from .charge_state import ChargeState, _finite, _qstr
 from .chempot import ChemicalPotentials
 
-__all__ = ["ChargeState", "TransitionLevel", "FormationDiagram", "formation_energies"]
-
-
-def _finite(value, what: str, source=None, field_name=None) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise InputFormatError(source, None, f"{what} must be a number, got {value!r}", field=field_name) from None
-    if not math.isfinite(v):
-        raise InputFormatError(source, None, f"{what} must be finite, got {v}", field=field_name)
-    return v
-
-
-def _qstr(q) -> str:
-    q = int(q)
-    return f"{q:+d}" if q else "0"
-
-
-@dataclass(frozen=True)
-class ChargeState:
-    """Total energies of one charge state of a defect.
-
-    Attributes
-    ----------
-    charge : int
-        q, e (electrons removed count positive).
-    total_energy : float
-        Total energy of the defect supercell in this charge state, eV.
-    host_total_energy : float or None
-        Total energy of the pristine supercell, eV (may instead be given once
-        to :func:`formation_energies`).
-    correction : float
-        Finite-size correction added to ``total_energy``, eV (a
-        :class:`~orbtool.levels.correction.ChargeCorrection` is accepted and
-        kept in :attr:`correction_detail`).
-    exchanged : dict[str, int] or None
-        Atoms added to the host (negative: removed), e.g. ``{"O": -1}``.
-    source : str or None
-        Where the energies came from.
-    """
-
-    charge: int
-    total_energy: float
-    host_total_energy: float | None = None
-    correction: float = 0.0
-    exchanged: dict | None = None
-    source: str | None = None
-    correction_detail: object = None
-
-    def __post_init__(self):
-        src = self.source
-        q = self.charge
-        if isinstance(q, bool) or not isinstance(q, (int, np.integer)) or int(q) != q:
-            raise InputFormatError(src, None, f"charge must be an integer, got {q!r}", field="charge")
-        object.__setattr__(self, "charge", int(q))
-        object.__setattr__(self, "total_energy", _finite(self.total_energy, "total_energy", src, "total_energy"))
-        if self.host_total_energy is not None:
-            object.__setattr__(self, "host_total_energy",
-                               _finite(self.host_total_energy, "host_total_energy", src, "host_total_energy"))
-        corr = self.correction
-        if hasattr(corr, "terms") and hasattr(corr, "energy"):
-            if getattr(corr, "charge", self.charge) != self.charge:
-                raise InputFormatError(src, None, f"correction is for q = {corr.charge:+d} but the state has "
-                                       f"q = {self.charge:+d}", field="correction")
-            object.__setattr__(self, "correction_detail", corr)
-            corr = corr.energy
-        object.__setattr__(self, "correction", _finite(corr, "correction", src, "correction"))
-        if self.exchanged is not None:
-            object.__setattr__(self, "exchanged", {str(k): int(v) for k, v in dict(self.exchanged).items() if v})
-
-    @classmethod
-    def from_case(cls, case, correction=0.0, host_total_energy: float | None = None) -> "ChargeState":
-        """Build from a :class:`~orbtool.case.DefectCase` (energies in eV).
-
-        The atoms exchanged are counted from the defect and host structures
-        when both are present.
-        """
-        src = getattr(case, "source", None) or getattr(case, "name", None)
-        if case.total_energy is None:
-            raise InputFormatError(src, None, f"case {case.name!r} has no defect total energy", field="total_energy")
-        host_e = case.host_total_energy if host_total_energy is None else host_total_energy
-        exchanged = None
-        if case.host is not None:
-            from collections import Counter
-            d = Counter(case.defect.get_chemical_symbols())
-            h = Counter(case.host.get_chemical_symbols())
-            exchanged = {e: d[e] - h[e] for e in set(d) | set(h) if d[e] != h[e]}
-        return cls(charge=case.charge, total_energy=case.total_energy, host_total_energy=host_e,
-                   correction=correction, exchanged=exchanged, source=src)
+__all__ = ["ChargeState", "TransitionLevel", "FormationDiagram", "formation_energies"]  # ChargeState re-exported
 
 
 @dataclass(frozen=True)
@@ -174,6 +87,8 @@ class FormationDiagram:
         The ``μ_i`` used, eV/atom.
     notes : tuple[str, ...]
         Assumptions and anything outside the gap.
+    corrections : dict[int, ChargeCorrection]
+        The correction objects given with the states (terms used, notes).
     """
 
     name: str
