@@ -86,6 +86,8 @@ def test_image_correction_equals_makov_payne_leading_term():
     assert corr.used == ("image", "quadrupole")
     assert corr.energy == pytest.approx(mp["leading"] + mp["quadrupole"], rel=1e-12)
     assert any("alignment term not included" in n for n in corr.notes)
+    ew = charge_correction(q, np.eye(3) * L, eps)  # default scheme: Ewald image term, α reported
+    assert ew.used == ("image",) and ew.details["alpha_effective"] == pytest.approx(2.8373, abs=1e-4)
 
 
 def _potential_grids(cell, n, shift, center):

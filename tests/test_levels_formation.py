@@ -207,3 +207,21 @@ def test_plain_numbers_are_accepted():
     assert d2.transitions[0].above_vbm == pytest.approx(eps10 + CORR1, abs=1e-12)  # no correction: shifts by it
     with pytest.raises(InputFormatError, match="cannot read a charge state"):
         formation_energies(["q=0"], {"O": MU_O}, **kw)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.floats(0.0, 1.0), min_size=5, max_size=5), st.floats(0.01, 0.5))
+def test_region_membership_matches_its_corners(weights, push):
+    # the region is the convex hull of its corners (a polytope, Zhang & Northrup 1991): convex combinations
+    # are accepted, the LP bounds are the corner extremes, and stepping past Δμ_i = 0 is refused
+    r = stability_region("ZnSnN2", -1.0, [("Zn3N2", -0.3), ("Sn3N4", -0.5)])
+    w = np.array(weights[: len(r.vertices)]) + 1e-9
+    point = (w / w.sum()) @ r.vertices
+    got = r.at(dict(zip(r.elements, point)))
+    assert list(got.delta.values()) == pytest.approx(point, abs=1e-12)
+    for k, e in enumerate(r.elements):
+        assert r.bounds[e] == pytest.approx((r.vertices[:, k].min(), r.vertices[:, k].max()), abs=1e-8)
+    rich = r.rich("N").delta
+    bad = {"Zn": rich["Zn"] - push, "Sn": rich["Sn"]}  # N from the host equation: Δμ_N = rich + push/2 > 0
+    with pytest.raises(ModelError, match="elemental N"):
+        r.at(bad)

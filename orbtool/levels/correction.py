@@ -301,7 +301,12 @@ def charge_correction(charge: int, cell, dielectric, *, scheme: str = "ewald", q
         notes.append("neutral defect: no image or alignment term is needed")
     elif scheme == "ewald":
         terms["image"] = image_charge_energy(q, cell, eps)
-        notes.append("image: anisotropic Ewald point-charge energy (Rurali & Cartoixà 2009; Murphy & Hine 2013)")
+        length = float(np.linalg.det(cell)) ** (1.0 / 3.0)
+        eps_bar = float(np.linalg.det(eps)) ** (1.0 / 3.0)
+        details.update(length=length, alpha_effective=2.0 * eps_bar * length * terms["image"] / (q * q * COULOMB))
+        notes.append("image: anisotropic Ewald point-charge energy (Rurali & Cartoixà 2009; Murphy & Hine 2013); "
+                     f"as q²α/(2ε̄L) with ε̄ = (det ε)^(1/3), L = V^(1/3) = {length:.4f} Å: "
+                     f"α = {details['alpha_effective']:.6f}")
     else:
         mp = makov_payne_energy(q, cell, eps, quadrupole)
         terms["image"] = mp["leading"]
