@@ -191,3 +191,44 @@ def test_bad_inputs(case):
         align(bad, ssh_site())
     with pytest.raises(OrbtoolError, match="cannot align"):
         align(case, ssh_site())
+
+
+def test_spin_resolved_edges():
+    # rigid spin splitting ±Δ/2 of the SSH bands: each spin keeps the SSH gap, the
+    # overall gap shrinks by Δ (SSH 1979 band edges, shifted)
+    host, _, _ = ssh(False)
+    delta = 0.6
+    e = np.concatenate([host.energies - delta / 2, host.energies + delta / 2])
+    occ = np.concatenate([host.occupations / 2] * 2)
+    w = np.concatenate([host.weights] * 2)
+    pol = BandProjections(host.kpoints, host.kweights, e, occ, w, host.orbitals, atoms=host.atoms)
+    edges = band_edges(pol)
+    g = abs(T2 - T1)
+    assert edges.by_spin[0] == pytest.approx((EPS0 - delta / 2 - g, EPS0 - delta / 2 + g), abs=1e-10)
+    assert edges.by_spin[1] == pytest.approx((EPS0 + delta / 2 - g, EPS0 + delta / 2 + g), abs=1e-10)
+    assert edges.gap == pytest.approx(2 * g - delta, abs=1e-10)
+
+
+def test_projection_and_grid_routes_agree_for_the_midgap_state(case):
+    from scipy.stats import chi
+
+    from orbtool.analysis.character import compare_routes
+
+    site = ssh_site()
+    st = in_gap_states(case, site, alignment=0.0)[0]
+    # a grid whose state density is a narrow Gaussian on every atom, weighted by the SSH amplitudes
+    cell = np.diag([2 * NCELL * A, 8.0, 8.0])
+    g = Grid(np.zeros((168, 80, 80)), cell)
+    sigma = 0.15
+    dens = np.zeros(g.shape)
+    for p, w in zip(case.defect.get_positions(), st.atom_weights):
+        if w > 1e-12:
+            dens += w * (2 * np.pi * sigma**2) ** -1.5 * np.exp(-g.minimum_image_distance(p) ** 2 / (2 * sigma**2))
+    g = g.with_values(dens, unit="e/Å^3", atoms=case.defect)
+    cmp = compare_routes(st, g, site, top=3)
+    # Voronoi cells hold each Gaussian up to the Maxwell tail beyond half the bond (chi₃, scipy)
+    bound = chi(df=3).sf(A / 2 / sigma)
+    assert cmp.max_difference < bound + 1e-6
+    assert cmp.top_overlap == 1.0 and cmp.correlation > 0.999
+    assert cmp.shells[1][1] == pytest.approx(st.shell_fractions[1], abs=2 * bound + 1e-6)
+    assert "projections vs grid" in cmp.summary()
