@@ -225,3 +225,18 @@ def test_region_membership_matches_its_corners(weights, push):
     bad = {"Zn": rich["Zn"] - push, "Sn": rich["Sn"]}  # N from the host equation: Δμ_N = rich + push/2 > 0
     with pytest.raises(ModelError, match="elemental N"):
         r.at(bad)
+
+
+def test_cases_with_dielectric_get_their_correction():
+    # with ε given, each charged case is corrected by the Ewald image term q²α/(2εL) (Makov & Payne 1995;
+    # simple cubic α = 2.8373, Leslie & Gillan 1985); the neutral case by nothing
+    host = bulk("MgO", "rocksalt", a=4.2, cubic=True).repeat(2)  # 8.4 Å simple-cubic supercell
+    defect = host.copy()
+    del defect[[a.index for a in defect if a.symbol == "O"][0]]
+    c0 = DefectCase(name="V_O^0", defect=defect, host=host, charge=0, total_energy=E_DEF0, host_total_energy=E_HOST)
+    c2 = c0.replace(name="V_O^2+", charge=2, total_energy=E_DEF1)
+    d = formation_energies([c0, c2], {"O": MU_O}, vbm=E_VBM, gap=7.8, dielectric=9.8)
+    expected = 4 * 2.8373 * 14.399645 / (2 * 9.8 * 8.4)
+    assert d.terms[2]["E_corr"] == pytest.approx(expected, rel=5e-5)
+    assert d.terms[0]["E_corr"] == 0.0
+    assert d.corrections[2].used == ("image",)

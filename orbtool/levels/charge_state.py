@@ -83,11 +83,26 @@ class ChargeState:
             object.__setattr__(self, "exchanged", {str(k): int(v) for k, v in dict(self.exchanged).items() if v})
 
     @classmethod
-    def from_case(cls, case, correction=0.0, host_total_energy: float | None = None) -> "ChargeState":
+    def from_case(cls, case, correction=None, host_total_energy: float | None = None, *, dielectric=None,
+                  defect_position=None, scheme: str = "ewald", subtract_model: bool = False) -> "ChargeState":
         """Build from a :class:`~orbtool.case.DefectCase` (energies in eV).
 
         The atoms exchanged are counted from the defect and host structures
         when both are present.
+
+        Parameters
+        ----------
+        case : DefectCase
+        correction : float or ChargeCorrection, optional
+            Finite-size correction, eV. If omitted and ``dielectric`` is
+            given, it is computed with
+            :func:`~orbtool.levels.correction.charge_correction` on the defect
+            cell, adding potential alignment when the case holds ``"potential"``
+            grids for defect and host and ``defect_position`` (Å) is given.
+        host_total_energy : float, optional
+            Overrides the case's host energy, eV.
+        dielectric, defect_position, scheme, subtract_model
+            Passed to ``charge_correction``.
         """
         src = getattr(case, "source", None) or getattr(case, "name", None)
         if case.total_energy is None:
@@ -99,5 +114,15 @@ class ChargeState:
             d = Counter(case.defect.get_chemical_symbols())
             h = Counter(case.host.get_chemical_symbols())
             exchanged = {e: d[e] - h[e] for e in set(d) | set(h) if d[e] != h[e]}
+        if correction is None and dielectric is not None:
+            from .correction import charge_correction
+            hp, dp = case.host_grids.get("potential"), case.grids.get("potential")
+            use_grids = hp is not None and dp is not None and defect_position is not None
+            correction = charge_correction(case.charge, case.defect, dielectric, scheme=scheme,
+                                           host_potential=hp if use_grids else None,
+                                           defect_potential=dp if use_grids else None,
+                                           defect_position=defect_position, subtract_model=subtract_model)
+        elif correction is None:
+            correction = 0.0
         return cls(charge=case.charge, total_energy=case.total_energy, host_total_energy=host_e,
                    correction=correction, exchanged=exchanged, source=src)

@@ -19,7 +19,6 @@ import itertools
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import linprog
 
 from ..errors import ModelError
 
@@ -305,6 +304,7 @@ def stability_region(host, enthalpy: float | None = None, competing=(), *, metho
                   elements[1]: tuple(sorted((float(verts[0, 1]), float(verts[1, 1]))))}
         label = "closed form (two elements)"
     else:
+        from scipy.optimize import linprog  # imported here: scipy.optimize is slow to import
         bounds = {}
         for i, e in enumerate(elements):
             ends = []

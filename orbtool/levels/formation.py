@@ -187,11 +187,11 @@ class FormationDiagram:
         }
 
 
-def _as_state(item) -> ChargeState:
+def _as_state(item, dielectric=None, defect_position=None) -> ChargeState:
     if isinstance(item, ChargeState):
         return item
     if hasattr(item, "total_energy") and hasattr(item, "charge"):
-        return ChargeState.from_case(item)
+        return ChargeState.from_case(item, dielectric=dielectric, defect_position=defect_position)
     if isinstance(item, (tuple, list)) and len(item) in (2, 3):
         return ChargeState(*item) if len(item) == 2 else ChargeState(item[0], item[1], correction=item[2])
     raise InputFormatError(None, None, f"cannot read a charge state from {item!r}; expected a ChargeState, a "
@@ -222,7 +222,8 @@ def _lower_envelope(charges: np.ndarray, offsets: np.ndarray) -> list[tuple[int,
 
 
 def formation_energies(states, chemical_potentials, *, vbm: float, gap: float, exchanged: dict | None = None,
-                       host_total_energy: float | None = None, name: str = "defect") -> FormationDiagram:
+                       host_total_energy: float | None = None, name: str = "defect", dielectric=None,
+                       defect_position=None) -> FormationDiagram:
     """Formation energies of a defect's charge states and its transition levels.
 
     Parameters
@@ -244,6 +245,10 @@ def formation_energies(states, chemical_potentials, *, vbm: float, gap: float, e
         Pristine supercell energy (eV) for states that lack one.
     name : str
         Defect label.
+    dielectric : float or array_like (3, 3), optional
+        For states given as DefectCase: compute each finite-size correction
+        (see :meth:`ChargeState.from_case`); ``defect_position`` (Å) adds
+        potential alignment when the cases hold potential grids.
 
     Raises
     ------
@@ -253,7 +258,8 @@ def formation_energies(states, chemical_potentials, *, vbm: float, gap: float, e
     ModelError
         A missing chemical potential, a non-positive gap.
     """
-    states = [_as_state(s) for s in (states.items() if isinstance(states, dict) else states)]
+    states = [_as_state(s, dielectric, defect_position)
+              for s in (states.items() if isinstance(states, dict) else states)]
     if not states:
         raise InputFormatError(None, None, f"{name}: no charge states given", field="states")
     charges = [s.charge for s in states]
