@@ -71,3 +71,6 @@ def test_potential_alignment_with_located_site(cells):
     al = align(case)
     assert al.shift == pytest.approx(0.42, abs=1e-9)
     assert "potential" in al.method
+    planar = align(case, region="planar")
+    assert planar.shift == pytest.approx(0.42, abs=1e-9)
+    assert "planar" in planar.method

@@ -100,7 +100,7 @@ def host_indices(site, defect, host, indices) -> np.ndarray:
     return np.argmin(d, axis=1)
 
 
-def _potential_shift(case, centre, far_fraction):
+def _potential_shift(case, centre, far_fraction, region):
     vd, vh = case.grids["potential"], case.host_grids["potential"]
     for g, who in ((vd, "defect"), (vh, "host")):
         if g.unit not in ("eV", "arb"):
@@ -112,12 +112,27 @@ def _potential_shift(case, centre, far_fraction):
                             "cell needed")
     if not 0 < far_fraction <= 1:
         raise InputFormatError(None, None, f"far_fraction must be in (0, 1], got {far_fraction}", field="far_fraction")
-    d = vd.minimum_image_distance(centre)
-    cut = float(np.quantile(d, 1.0 - far_fraction))
-    far = d >= cut
-    diff = vh.values[far] - vd.values[far]
-    return (float(diff.mean()), f"electrostatic potential averaged over the points farther than {cut:.2f} Å from "
-            f"the site ({far_fraction:.0%} of the cell)", float(diff.std()))
+    if region == "sphere":
+        d = vd.minimum_image_distance(centre)
+        cut = float(np.quantile(d, 1.0 - far_fraction))
+        far = d >= cut
+        diff = vh.values[far] - vd.values[far]
+        return (float(diff.mean()), f"electrostatic potential averaged over the points farther than {cut:.2f} Å "
+                f"from the site ({far_fraction:.0%} of the cell)", float(diff.std()))
+    if region != "planar":
+        raise InputFormatError(None, None, f"region must be 'sphere' or 'planar', got {region!r}", field="region")
+    # planar average: the slab of lattice planes farthest from the site along the longest lattice vector
+    axis = int(np.argmax(np.linalg.norm(vd.cell, axis=1)))
+    c_frac = ((centre - vd.origin) @ np.linalg.inv(vd.cell))[axis]
+    off = np.abs(((vd.fractional_axes()[axis] - c_frac + 0.5) % 1.0) - 0.5)
+    planes = off >= 0.5 - far_fraction / 2 - 1e-12
+    if not planes.any():
+        planes = off == off.max()
+    other = tuple(i for i in range(3) if i != axis)
+    profile = (vh.values - vd.values).mean(axis=other)          # planar average along the axis
+    vals = profile[planes]
+    return (float(vals.mean()), f"planar-averaged electrostatic potential in the {int(planes.sum())} lattice "
+            f"plane(s) farthest from the site along a{axis + 1}", float(vals.std()))
 
 
 def _centroid(pdos, atoms, l, window, shift=0.0):
@@ -172,8 +187,8 @@ def _pdos_shift(case, site, centre, count, l, window):
                    f"{lo:.3f} … {hi:.3f} eV (host scale)"), spread, notes
 
 
-def align(case, site=None, *, method: str = "auto", far_fraction: float = 0.25, count: int | None = None,
-          l: int | None = None, window=None) -> Alignment:
+def align(case, site=None, *, method: str = "auto", far_fraction: float = 0.25, region: str = "sphere",
+          count: int | None = None, l: int | None = None, window=None) -> Alignment:
     """Offset that puts the defect cell's energies on the host's scale.
 
     Parameters
@@ -190,8 +205,12 @@ def align(case, site=None, *, method: str = "auto", far_fraction: float = 0.25, 
         (host scale, eV) and ``l`` to use a deep, core-like channel, default
         the whole occupied range. ``"auto"`` takes the first available.
     far_fraction : float
-        Share of the grid points (farthest from the site) averaged for the
+        Share of the cell (farthest from the site) averaged for the
         potential route.
+    region : {"sphere", "planar"}
+        Potential route: average over the points farthest from the site, or
+        the planar average over the slab of lattice planes farthest from the
+        site along the longest lattice vector.
     count : int, optional
         Number of far atoms for the PDOS route (default one eighth of the cell).
     l : int, optional
@@ -220,7 +239,7 @@ def align(case, site=None, *, method: str = "auto", far_fraction: float = 0.25, 
         if not has_pot:
             raise InputFormatError(case.source, None, "method='potential' needs grids['potential'] and "
                                    "host_grids['potential']", field="grids")
-        shift, how, spread = _potential_shift(case, centre, far_fraction)
+        shift, how, spread = _potential_shift(case, centre, far_fraction, region)
         notes = []
     elif method == "pdos":
         if not has_pdos:

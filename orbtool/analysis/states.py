@@ -329,6 +329,9 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
     except OrbtoolError as exc:
         notes.append(f"no vacancy site ({exc}); shell fractions left out")
         site = None
+    has_shells = site is not None and any(hasattr(site, a) for a in ("shells", "first_shell"))
+    if site is not None and not has_shells:
+        notes.append("the site carries no neighbour shells; shell fractions left out")
     if alignment is None:
         try:
             alignment = align(case, site=site) if site is not None else None
@@ -348,8 +351,8 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
     aligned = mean + shift
     inside = (aligned > edges.vbm + tol) & (aligned < edges.cbm - tol)
     ls = proj.orbital_ls()
-    first = _shell_indices(site, 1) if site is not None else []
-    second = _shell_indices(site, 2) if site is not None else []
+    first = _shell_indices(site, 1) if has_shells else []
+    second = _shell_indices(site, 2) if has_shells else []
     out = []
     for s, b in zip(*np.nonzero(inside)):
         s, b = int(s), int(b)
@@ -360,7 +363,7 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
             if L >= 0:
                 orb_w[_L_NAMES[L]] = float(ao[:, ls == L].sum())
         shells = {}
-        if site is not None:
+        if has_shells:
             f1, f2 = float(atom_w[first].sum()), float(atom_w[second].sum())
             shells = {1: f1, 2: f2, "rest": 1.0 - f1 - f2}
         ek = proj.energies[s, :, b]
