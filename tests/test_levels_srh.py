@@ -154,3 +154,21 @@ def test_defect_levels_from_state_only():
     expect = (1e-7 + 4e-7 * (1e9 + n1_mid) / 1e16) / (1e-7 + 4e-7 * (1e9 + n1) / 1e16)
     assert e.srh_ratio == pytest.approx(expect, rel=1e-4)
     assert dl.deepest is None and dl.diagram is None
+
+
+def test_n1_equals_band_edge_form_and_wide_gap_is_stable():
+    # with n_i from N_c, N_v: n_i e^{(E_t−E_i)/kT} = N_c e^{−(E_c−E_t)/kT}, p_1 = N_v e^{−(E_t−E_v)/kT}
+    # (Sze & Ng, ch. 1, SRH section); checked through the rate at T = 300 K
+    m = Semiconductor.from_masses(3.3, 0.28, 1.8, 300.0)  # computed n_i (tiny for a 3.3 eV gap)
+    rec = TrapRecombination(m, tau_n=1e-9, tau_p=2e-9, doping=-1e17, injection=1e13)
+    kt, et = KB * 300.0, 2.9
+    n1 = m.nc * math.exp(-(3.3 - et) / kt)
+    p1 = m.nv * math.exp(-et / kt)
+    n, p = rec.carriers
+    u = (n * p - m.ni ** 2) / (2e-9 * (n + n1) + 1e-9 * (p + p1))
+    assert float(rec.rate(et)) == pytest.approx(u, rel=1e-9)
+    # a 6 eV gap at 20 K: n_i underflows to 0 in floating point, the rates stay finite and warning-free
+    cold = TrapRecombination(Semiconductor.from_masses(6.0, 0.3, 1.0, 20.0), 1e-7, 1e-7, doping=1e16)
+    with np.errstate(over="raise", invalid="raise", divide="raise"):
+        r = cold.midgap_ratio(np.array([0.1, 3.0, 5.9]))
+    assert np.all(np.isfinite(r)) and cold.material.ni == 0.0

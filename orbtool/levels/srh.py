@@ -90,9 +90,17 @@ def srh_rate(n, p, ni, trap_minus_intrinsic, tau_n, tau_p, temperature: float = 
     x = np.asarray(trap_minus_intrinsic, dtype=float) / kt
     n = np.asarray(n, dtype=float)
     p = np.asarray(p, dtype=float)
-    n1 = ni * np.exp(x)
-    p1 = ni * np.exp(-x)
-    return (n * p - ni * ni) / (tau_p * (n + n1) + tau_n * (p + p1))
+    log_ni = math.log(ni) if ni > 0 else -math.inf
+    return _rate(n, p, ni, log_ni, x, tau_n, tau_p)
+
+
+def _rate(n, p, ni, log_ni, x, tau_n, tau_p):
+    """SRH rate with n1, p1 formed in log space (no 0·∞ when n_i underflows
+    in a wide gap at low temperature)."""
+    with np.errstate(over="ignore"):
+        n1 = np.exp(log_ni + x)
+        p1 = np.exp(log_ni - x)
+        return (n * p - ni * ni) / (tau_p * (n + n1) + tau_n * (p + p1))
 
 
 @dataclass(frozen=True)
@@ -139,6 +147,13 @@ class Semiconductor:
                                   effective_density_of_states(hole_mass, t), t, ni)
 
     @property
+    def log_ni(self) -> float:
+        """``ln n_i`` (n_i in cm⁻³), exact even where ``ni`` underflows to 0."""
+        if self.ni > 0:
+            return math.log(self.ni)
+        return 0.5 * math.log(self.nc * self.nv) - self.gap / (2.0 * self.kt)
+
+    @property
     def kt(self) -> float:
         """k_B T, eV."""
         return KB * self.temperature
@@ -154,7 +169,7 @@ class Semiconductor:
         root = math.sqrt(0.25 * d * d + self.ni ** 2)
         if d >= 0:
             n0 = 0.5 * d + root
-            return n0, self.ni ** 2 / n0
+            return n0, (self.ni ** 2 / n0 if n0 > 0 else 0.0)
         p0 = -0.5 * d + root
         return self.ni ** 2 / p0, p0
 
@@ -232,10 +247,10 @@ class TrapRecombination:
 
     def rate(self, above_vbm):
         """``U`` (cm⁻³ s⁻¹) for trap level(s) ``above_vbm`` (eV)."""
-        e = self.material.check_trap(above_vbm)
+        m = self.material
+        e = m.check_trap(above_vbm)
         n, p = self.carriers
-        return srh_rate(n, p, self.material.ni, e - self.material.intrinsic_level, self.tau_n, self.tau_p,
-                        self.material.temperature)
+        return _rate(n, p, m.ni, m.log_ni, (e - m.intrinsic_level) / m.kt, self.tau_n, self.tau_p)
 
     def lifetime(self, above_vbm):
         """SRH lifetime ``Δn / U``, s."""
