@@ -232,3 +232,16 @@ def test_projection_and_grid_routes_agree_for_the_midgap_state(case):
     assert cmp.top_overlap == 1.0 and cmp.correlation > 0.999
     assert cmp.shells[1][1] == pytest.approx(st.shell_fractions[1], abs=2 * bound + 1e-6)
     assert "projections vs grid" in cmp.summary()
+
+
+def test_moment_comparison_rejects_bad_windows_and_missing_pdos(case):
+    _, hatoms, (hev, hvec) = ssh(False)
+    _, datoms, (dev, dvec) = ssh(True)
+    c = DefectCase("V_C", datoms, host=hatoms, host_pdos=pdos_from(hev, hvec, hatoms),
+                   defect_pdos=pdos_from(dev, dvec, datoms))
+    with pytest.raises(InputFormatError, match="outside the range"):
+        neighbour_moments(c, ssh_site(), alignment=0.0, window=(-9.0, 0.0))
+    with pytest.raises(InputFormatError, match="host_pdos"):
+        neighbour_moments(c.replace(host_pdos=None), ssh_site(), alignment=0.0)
+    by_orbital = neighbour_moments(c, ssh_site(), alignment=0.0, by="orbital")
+    assert {r.orbital for r in by_orbital.rows} == {"s"}

@@ -193,8 +193,8 @@ class MomentComparison:
 
 
 def neighbour_moments(case, site=None, *, window=None, alignment=None, shell: int = 1,
-                      levels: int = 0) -> MomentComparison:
-    """PDOS moments of every orbital channel (by l) of the vacancy's neighbours,
+                      levels: int = 0, by: str = "l") -> MomentComparison:
+    """PDOS moments of every orbital channel of the vacancy's neighbours,
     in the host and in the defect cell.
 
     Parameters
@@ -211,6 +211,9 @@ def neighbour_moments(case, site=None, *, window=None, alignment=None, shell: in
         Neighbour shell (1 = nearest).
     levels : int
         When > 0, also the recursion coefficients of each channel.
+    by : {"l", "orbital"}
+        Group channels by angular momentum (s, p, d) or keep every orbital
+        column of the PDOS (lm where the file has it).
     """
     from .states import align, resolve_site
 
@@ -231,8 +234,21 @@ def neighbour_moments(case, site=None, *, window=None, alignment=None, shell: in
     if hasattr(alignment, "method"):
         notes.append(f"alignment {shift:+.4f} eV by {alignment.method}")
     hp, dp = case.host_pdos, case.defect_pdos
+    common = (max(hp.energies[0], dp.energies[0] + shift), min(hp.energies[-1], dp.energies[-1] + shift))
     if window is None:
-        window = (max(hp.energies[0], dp.energies[0] + shift), min(hp.energies[-1], dp.energies[-1] + shift))
+        window = common
+    try:
+        lo, hi = (float(w) for w in window)
+    except (TypeError, ValueError):
+        raise InputFormatError(None, None, f"window must be (emin, emax) in eV, got {window!r}",
+                               field="window") from None
+    tol = 1e-9 * max(1.0, abs(common[0]), abs(common[1]))
+    if not hi > lo or lo < common[0] - tol or hi > common[1] + tol:
+        raise InputFormatError(dp.source, None, f"window {lo:.4f} … {hi:.4f} eV (host scale) lies outside the "
+                               f"range both PDOS cover after alignment ({common[0]:.4f} … {common[1]:.4f} eV)",
+                               field="window")
+    if by not in ("l", "orbital"):
+        raise InputFormatError(None, None, f"by must be 'l' or 'orbital', got {by!r}", field="by")
     shells = getattr(site, "shells", None)
     neighbours = shells[shell - 1] if shells else (site.first_shell if shell == 1 else site.second_shell)
     rows = []
@@ -240,22 +256,26 @@ def neighbour_moments(case, site=None, *, window=None, alignment=None, shell: in
         hidx = getattr(nb, "host_index", None)
         if hidx is None:
             raise InputFormatError(None, None, "the site's neighbours carry no host_index", field="site")
-        ls = sorted({c.l for c in dp.channels if c.atom == nb.index and c.l >= 0})
-        for L in ls:
+        if by == "l":
+            groups = [({"l": L}, _L_NAMES[L])
+                      for L in sorted({c.l for c in dp.channels if c.atom == nb.index and c.l >= 0})]
+        else:
+            names = sorted({c.orbital for c in dp.channels if c.atom == nb.index and c.orbital != "tot"})
+            groups = [({"orbitals": o}, o) for o in names]
+        for crit, name in groups:
             for s in range(dp.nspin):
-                try:
-                    h = channel_moments(hp, window, atoms=int(hidx), l=L, spin=s)
-                except InputFormatError:
-                    continue                   # channel absent (or empty) in the host
-                d = channel_moments(dp, window, shift=shift, atoms=int(nb.index), l=L, spin=s)
+                if not hp.mask(atoms=int(hidx), spin=s, **crit).any():
+                    continue                   # channel absent in the host
+                h = channel_moments(hp, window, atoms=int(hidx), spin=s, **crit)
+                d = channel_moments(dp, window, shift=shift, atoms=int(nb.index), spin=s, **crit)
                 hr = dr = None
                 if levels:
-                    hr = recursion_coefficients(hp.energies, hp.select(atoms=int(hidx), l=L, spin=s),
+                    hr = recursion_coefficients(hp.energies, hp.select(atoms=int(hidx), spin=s, **crit),
                                                 levels, window=window)
-                    dr = recursion_coefficients(dp.energies + shift, dp.select(atoms=int(nb.index), l=L, spin=s),
+                    dr = recursion_coefficients(dp.energies + shift, dp.select(atoms=int(nb.index), spin=s, **crit),
                                                 levels, window=window)
                 rows.append(MomentRow(atom=int(nb.index), host_atom=int(hidx), element=str(nb.element),
-                                      orbital=_L_NAMES[L], spin=s, host=h, defect=d,
+                                      orbital=name, spin=s, host=h, defect=d,
                                       host_recursion=hr, defect_recursion=dr))
     if not rows:
         raise InputFormatError(dp.source, None, f"no PDOS channel found for the shell-{shell} neighbours "
