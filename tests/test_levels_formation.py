@@ -4,6 +4,7 @@ Formalism: S. B. Zhang & J. E. Northrup, PRL 67, 2339 (1991); C. Freysoldt et al
 (2014), eq. 1 (formation energy) and eq. 4 (transition level ε(q/q') = [E_f(q;0) − E_f(q';0)]/(q' − q)).
 """
 
+import functools
 import json
 import math
 
@@ -209,12 +210,17 @@ def test_plain_numbers_are_accepted():
         formation_energies(["q=0"], {"O": MU_O}, **kw)
 
 
+@functools.lru_cache(maxsize=1)
+def _ternary():
+    return stability_region("ZnSnN2", -1.0, [("Zn3N2", -0.3), ("Sn3N4", -0.5)])
+
+
 @settings(max_examples=40, deadline=None)
 @given(st.lists(st.floats(0.0, 1.0), min_size=5, max_size=5), st.floats(0.01, 0.5))
 def test_region_membership_matches_its_corners(weights, push):
     # the region is the convex hull of its corners (a polytope, Zhang & Northrup 1991): convex combinations
     # are accepted, the LP bounds are the corner extremes, and stepping past Δμ_i = 0 is refused
-    r = stability_region("ZnSnN2", -1.0, [("Zn3N2", -0.3), ("Sn3N4", -0.5)])
+    r = _ternary()
     w = np.array(weights[: len(r.vertices)]) + 1e-9
     point = (w / w.sum()) @ r.vertices
     got = r.at(dict(zip(r.elements, point)))
