@@ -35,11 +35,23 @@ _LAZY = {
     "write_projections": "orbtool.io",
     "load_case": "orbtool.io",
     "load_family": "orbtool.io",
+    "read_energy": "orbtool.io",
     "save_session": "orbtool.session",
+    "analyze_family": "orbtool.family",
+    "analyze_case": "orbtool.family",
+    "locate_vacancy": "orbtool.analysis",
+    "in_gap_states": "orbtool.analysis",
+    "formation_energies": "orbtool.levels",
+    "stability_region": "orbtool.levels",
+    "charge_correction": "orbtool.levels",
+    "DefectLevels": "orbtool.levels",
+    "Semiconductor": "orbtool.levels",
+    "TrapRecombination": "orbtool.levels",
     "load_session": "orbtool.session",
 }
 _SUBMODULES = {"io", "analysis", "tb", "levels", "views", "widgets", "figures", "report", "units",
-               "grid", "spectra", "case", "errors", "demo", "session", "family", "cli"}
+               "grid", "spectra", "case", "errors", "demo", "session", "family", "cli",
+               "pipeline", "mechanism", "style", "outputs"}
 
 __all__ = sorted(_LAZY) + ["OrbtoolError", "InputFormatError", "GeometryError", "FitError",
                            "ModelError", "SessionError", "__version__"]
