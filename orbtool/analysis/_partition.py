@@ -83,19 +83,26 @@ def sphere_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, positi
         keep = oo <= (r + half_diag) ** 2
         offs, ov, oo = offs[keep], ov[keep], oo[keep]
         cols = offs + reach                                               # column in the per-axis tables
-        atoms = np.flatnonzero(radii == r)
+        lin_o = (offs @ strides).astype(itype)                           # flat offsets when nothing wraps
+        of_r = radii == r
+        inner = np.all((base - reach >= 0) & (base + reach < shape), axis=1)
         step = max(1, chunk_points // len(offs))
-        for lo in range(0, len(atoms), step):
-            sel = atoms[lo:lo + step]
-            # |o + δ|² = |o|² + 2 o·δ + |δ|², with δ the atom-to-point vector (BLAS for the middle term)
-            d2 = oo[None, :] + 2.0 * (dvec[sel] @ ov.T) + np.einsum("ci,ci->c", dvec[sel], dvec[sel])[:, None]
-            lin = None
-            for axis in range(3):
-                table = (((base[sel, axis, None] + ax[axis][None, :]) % shape[axis]) * strides[axis]).astype(itype)
-                part = table[:, cols[:, axis]]
-                lin = part if lin is None else lin + part
-            vals = flat[lin]
-            out[sel] = np.where(d2 <= r * r, vals, 0.0).sum(axis=1)
+        for atoms, wraps in ((np.flatnonzero(of_r & inner), False), (np.flatnonzero(of_r & ~inner), True)):
+            for lo in range(0, len(atoms), step):
+                sel = atoms[lo:lo + step]
+                # |o + δ|² = |o|² + 2 o·δ + |δ|², with δ the atom-to-point vector (BLAS for the middle term)
+                d2 = oo[None, :] + 2.0 * (dvec[sel] @ ov.T) + np.einsum("ci,ci->c", dvec[sel], dvec[sel])[:, None]
+                if not wraps:
+                    lin = (base[sel] @ strides).astype(itype)[:, None] + lin_o[None, :]
+                else:
+                    lin = None
+                    for axis in range(3):
+                        table = (((base[sel, axis, None] + ax[axis][None, :]) % shape[axis])
+                                 * strides[axis]).astype(itype)
+                        part = table[:, cols[:, axis]]
+                        lin = part if lin is None else lin + part
+                vals = flat[lin]
+                out[sel] = np.where(d2 <= r * r, vals, 0.0).sum(axis=1)
     return out
 
 
