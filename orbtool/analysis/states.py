@@ -344,6 +344,8 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
     shift = float(getattr(alignment, "shift", alignment))
     if hasattr(alignment, "method"):
         notes.append(f"aligned by {shift:+.4f} eV: {alignment.method}")
+    elif not any(n.startswith("energies NOT aligned") for n in notes):
+        notes.append(f"alignment shift {shift:+.4f} eV given by the caller")
     notes.append(f"band edges: {edges.method}")
 
     kw = proj.kweights
