@@ -23,6 +23,8 @@ External references
 import numpy as np
 import pytest
 from ase import Atoms
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy.stats import chi
 
 from orbtool.analysis._partition import nearest_atom_sums, sphere_sums
@@ -169,3 +171,23 @@ def test_carbon_monoxide_orbitals_against_pyscf_mulliken(tmp_path):
         assert np.allclose(vor.fractions, mulliken, atol=0.05)
         sph = partition(g, "spheres", radii={"C": 0.77, "O": 0.73})
         assert np.array_equal(sph.ranking(), np.argsort(-mulliken))
+
+
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 2**31 - 1), natoms=st.integers(1, 12),
+       shape=st.tuples(st.integers(3, 21), st.integers(3, 21), st.integers(3, 21)))
+def test_voronoi_matches_scipy_periodic_kdtree(seed, natoms, shape):
+    # reference: scipy's cKDTree with periodic boxsize (orthogonal cells) labels every point by
+    # its nearest atom; orbtool's block descent must give the same cell sums
+    from scipy.spatial import cKDTree
+
+    rng = np.random.default_rng(seed)
+    lengths = rng.uniform(3.0, 9.0, 3)
+    pos = rng.random((natoms, 3)) * lengths
+    values = rng.random(shape)
+    g = Grid(values, np.diag(lengths))
+    pts = np.stack(np.meshgrid(*[np.arange(n) / n * L for n, L in zip(shape, lengths)], indexing="ij"), -1)
+    _, label = cKDTree(pos, boxsize=lengths).query(pts.reshape(-1, 3) % lengths)
+    want = np.bincount(label, weights=values.ravel(), minlength=natoms)
+    got = nearest_atom_sums(g.values, g.cell, g.origin, pos)
+    assert np.allclose(got, want, rtol=1e-10, atol=1e-10)
