@@ -7,7 +7,7 @@ fixes the offset: the electrostatic potential far from the defect, or the
 projected DOS of atoms far from it (a deep, core-like channel or the valence
 centroid). Both follow the potential-alignment idea of S. B. Zhang &
 J. E. Northrup, Phys. Rev. Lett. 67, 2339 (1991) and C. G. Van de Walle &
-J. Neugebauer, J. Appl. Phys. 95, 3851 (2004); see C. Freysoldt et al.,
+J. Neugebauer, J. Appl. Phys. 95, 3851 (2004) [citation from memory]; see C. Freysoldt et al.,
 Rev. Mod. Phys. 86, 253 (2014), Sec. IV for the caveats.
 
 Convention: ``shift`` is **added** to defect-cell energies to put them on

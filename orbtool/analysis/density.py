@@ -7,7 +7,7 @@ Two partitions of a (partial-charge or orbital) grid among the atoms:
   atom (spheres may overlap; what no sphere covers is reported as
   ``outside``);
 * ``"voronoi"`` — every grid point goes to its nearest atom under periodic
-  boundaries (G. Voronoi, J. reine angew. Math. 134, 198 (1908)); the cells
+  boundaries (G. Voronoi, J. reine angew. Math. 134, 198 (1908) [citation from memory]); the cells
   fill space, so the parts add up to the whole.
 
 Localisation measures about a site: the fraction within radius R, the

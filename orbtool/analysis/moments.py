@@ -3,7 +3,7 @@
 For an orbital |i⟩ with local DOS n_i(E), the power moments are
 μ_n = ∫ Eⁿ n_i(E) dE = ⟨i|Hⁿ|i⟩ (F. Cyrot-Lackmann, Adv. Phys. 16, 393 (1967);
 J. Phys. Chem. Solids 29, 1235 (1968); F. Ducastelle & F. Cyrot-Lackmann,
-J. Phys. Chem. Solids 31, 1295 (1970)). Normalised to one state, the first
+J. Phys. Chem. Solids 31, 1295 (1970) [citation from memory]). Normalised to one state, the first
 moment is the on-site energy ε_i and the second central moment is the sum of
 squared hoppings Σ_j |H_ij|². Removing an atom removes its hoppings: the
 drop in a neighbour's second moment measures the lost Σ|t|², the change of

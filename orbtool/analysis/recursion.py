@@ -13,12 +13,12 @@ stable routes are offered:
 * ``"lanczos"`` — the discretised Stieltjes procedure: Lanczos on the
   diagonal matrix of quadrature nodes with starting vector √(weights), with
   full re-orthogonalisation (W. Gautschi, SIAM J. Sci. Stat. Comput. 3, 289
-  (1982); W. B. Gragg & W. J. Harrod, Numer. Math. 44, 317 (1984));
+  (1982); W. B. Gragg & W. J. Harrod, Numer. Math. 44, 317 (1984)) [citations from memory];
 * ``"chebyshev"`` — the modified Chebyshev algorithm from modified moments
   ν_l = ∫p_l(t) n dE of monic Chebyshev polynomials on the window
   (R. A. Sack & A. F. Donovan, Numer. Math. 18, 465 (1972); J. C. Wheeler,
   Rocky Mountain J. Math. 4, 287 (1974); W. Gautschi, *Orthogonal
-  Polynomials: Computation and Approximation* (2004), Algorithm 2.1).
+  Polynomials: Computation and Approximation* (2004), Algorithm 2.1) [citations from memory].
 
 The rebuilt LDOS closes the fraction with the square-root terminator of a
 constant tail a_n = a∞, b_n = b∞ (Haydock, Heine & Kelly 1972).
