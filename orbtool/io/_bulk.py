@@ -5,9 +5,9 @@ few MB and parsed straight into the preallocated output array, so peak
 memory stays close to the size of the result. Inside a chunk, numbers
 written with a fixed layout (``[-]d.dddddE±dd`` as cube and CHGCAR writers
 do) are decoded with array arithmetic on the bytes (digit columns times
-powers of ten); any chunk not in that layout (varying widths, ``nan``, junk)
-falls back to numpy's text parser, which is slower but still vectorised and
-refuses non-numeric tokens.
+powers of ten, within 1.5 ulp of the correctly rounded value); any chunk not
+in that layout (varying widths, ``nan``, junk) falls back to numpy's text
+parser, which is slower but still vectorised and refuses non-numeric tokens.
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ from ..errors import InputFormatError
 
 __all__ = ["ValueReader"]
 
-_CHUNK = 1 << 21
+_CHUNK = 1 << 20
 # byte -> 0 for whitespace, 1 otherwise (bytes.translate is much faster than a numpy lookup)
 _CLASS = bytes(0 if b in (9, 10, 11, 12, 13, 32) else 1 for b in range(256))
 
@@ -38,9 +38,6 @@ class _Layout:
         self.a, self.b, self.c, self.echar = a, b, c, echar
         self.tail = b + ((2 + c) if echar else 0)  # bytes after the dot
         self.length = a + 1 + self.tail
-        # offsets from the dot of the mantissa digits, most significant first
-        self.mant_offsets = np.r_[-a:0, 1:b + 1]
-        self.exp_offsets = np.arange(b + 3, b + 3 + c)
 
     @classmethod
     def detect(cls, tok: bytes):
@@ -49,7 +46,7 @@ class _Layout:
         if m is None:
             return None
         a, b = len(m.group(1)), len(m.group(2))
-        if a + b > 17 or (m.group(3) is not None and len(m.group(4)) > 3):
+        if a > 8 or b > 16 or a + b > 17 or (m.group(3) is not None and len(m.group(4)) > 3):
             return None
         if m.group(3) is None:
             return cls(a, b, 0, False)
@@ -57,67 +54,90 @@ class _Layout:
 
     def decode(self, buf: np.ndarray, dots: np.ndarray):
         """Values of the tokens anchored at ``dots`` and the end byte of the last one,
-        or None if the block is not tiled by tokens of this layout and whitespace."""
-        n = buf.size
-        t0 = dots - self.a
-        t1 = dots + self.tail + 1
-        if t0[0] < 0 or t1[-1] > n:
+        or None if the block is not tiled by tokens of this layout and whitespace.
+
+        Each token is read with a few unaligned 8-byte loads at fixed offsets from its dot;
+        the digits inside a word are checked and combined with SWAR arithmetic.
+        """
+        a, b, c = self.a, self.b, self.c
+        stop = int(dots[-1]) + self.tail + 1
+        if stop > buf.size or int(dots[0]) < a:
             return None
-        before = buf[np.maximum(t0 - 1, 0)]
-        before[t0 == 0] = 32
-        sign = (before == 45) | (before == 43)
-        start = t0 - sign
-        pre = buf[np.maximum(start - 1, 0)]
-        pre[start == 0] = 32
-        stop = int(t1[-1])
-        post = buf[np.minimum(t1, n - 1)]
-        post[t1 == n] = 32
-        if pre.max() > 32 or post.max() > 32:
-            return None
-        if np.count_nonzero(buf[:stop] > 32) != dots.size * self.length + int(np.count_nonzero(sign)):
-            return None
-        # the mantissa digits, left-padded with '0' to 8 or 16 bytes, as a (ntok, W) byte matrix
-        nd = self.mant_offsets.size
-        width = 8 if nd <= 8 else 16
-        ext = np.concatenate([buf[:stop], _ZERO])  # last byte is a '0' used for padding
-        offs = np.concatenate([np.full(width - nd, -1 << 40), self.mant_offsets])
-        idx = dots[:, None] + offs
-        np.maximum(idx, -1, out=idx)  # padding columns -> index -1 -> the '0' at the end of ext
-        digits = np.take(ext, idx)
-        if (digits - np.uint8(48)).max(initial=0) > 9:
-            return None
-        words = digits.view("<u8")
-        mant = _eight_digits(words[:, 0]).astype(np.int64)
-        if width == 16:
-            mant = mant * 100_000_000 + _eight_digits(words[:, 1]).astype(np.int64)
-        bad = np.zeros(dots.size, dtype=bool)
-        scale = np.full(dots.size, -self.b, dtype=np.int64)
+        ext = np.empty(stop + 2 * _PAD, dtype=np.uint8)
+        ext[:_PAD] = 32
+        ext[_PAD:_PAD + stop] = buf[:stop]
+        ext[_PAD + stop:] = 32
+        words = np.ndarray(shape=(ext.size - 7,), dtype="<u8", buffer=ext, strides=(1,))
+        d = dots + _PAD
+        if a == 1:
+            # the usual case ('%e', Fortran E): the integer digit and the dot share a word with
+            # up to six fraction digits; the dot is read as a '0' and corrected for
+            lo_n = 0 if b <= 6 else min(b, 8)
+            r = b - lo_n  # fraction digits in the word holding the dot
+            if r > 6:
+                return None
+            w = words[d + (r - 7)]
+            dot_byte = np.uint64(0xFF << (8 * (7 - r)))
+            w = (w & ~dot_byte) | (np.uint64(0x30 << (8 * (7 - r))))
+            v, ok = _digit_word(w, r + 2)
+            idig = (w >> np.uint64(8 * (6 - r))) & _BYTE
+            mant = v - (idig - np.uint64(48)) * np.uint64(9 * 10 ** r)
+            if lo_n:
+                lo, ok_lo = _digit_word(words[d + (b - 7)], lo_n)
+                mant = mant * np.uint64(10 ** lo_n) + lo
+                ok &= ok_lo
+        else:
+            if b <= 8:
+                frac, ok = _digit_word(words[d + (1 + b - 8)], b)
+            else:
+                lo, ok = _digit_word(words[d + (1 + b - 8)], 8)
+                hi, ok_hi = _digit_word(words[d + (1 + b - 16)], b - 8)
+                frac = hi * np.uint64(100_000_000) + lo
+                ok &= ok_hi
+            ipart, ok_i = _digit_word(words[d - 8], a)
+            ok &= ok_i
+            mant = ipart * np.uint64(10 ** b) + frac
+        pw = words[d - (a + 2)]
+        pp, p = pw & _BYTE, (pw >> np.uint64(8)) & _BYTE
+        sign = (p == 45) | (p == 43)
+        ok &= np.where(sign, pp, p) <= 32
         if self.echar:
-            ec = buf[dots + (self.b + 1)] | np.uint8(0x20)
-            es = buf[dots + (self.b + 2)]
-            bad |= ~((ec == 101) | (ec == 100)) | ~((es == 45) | (es == 43))
-            e = np.zeros(dots.size, dtype=np.int64)
-            for off in self.exp_offsets:
-                d = buf[dots + off] - np.uint8(48)
-                bad |= d > 9
-                e *= 10
-                e += d
-            scale += np.where(es == 45, -e, e)
-        if bad.any():
+            xw = words[d + (b + 1)]
+            ec = (xw & _BYTE) | np.uint64(0x20)
+            es = (xw >> np.uint64(8)) & _BYTE
+            e, ok_e = _digit_word(xw << np.uint64(8 * (6 - c)), c)  # the c exponent digits, moved to the top
+            post = (xw >> np.uint64(16 + 8 * c)) & _BYTE
+            ok &= ok_e & ((ec == 101) | (ec == 100)) & ((es == 45) | (es == 43)) & (post <= 32)
+            e = e.astype(np.int64)
+            scale = np.where(es == 45, -e, e) - b
+        else:
+            ok &= ext[d + (b + 1)] <= 32
+            scale = np.full(dots.size, -b, dtype=np.int64)
+        if not ok.all():
             return None
-        m = mant.astype(np.float64)
-        # one correctly rounded operation when 10**|scale| is exact (|scale| <= 22)
-        val = m / _POW10[np.minimum(-scale, _POW10.size - 1)]
-        pos = scale > 0
-        if pos.any():
-            val[pos] = m[pos] * _POW10[np.minimum(scale[pos], _POW10.size - 1)]
-        neg = sign & (before == 45)
-        if neg.any():
-            np.negative(val, out=val, where=neg)
+        nsign = int(np.count_nonzero(sign))
+        if np.count_nonzero(buf[:stop] > 32) != dots.size * self.length + nsign:
+            return None  # something other than these tokens and whitespace is in the block
+        # mantissa (exact integer) times a correctly rounded power of ten: within 1.5 ulp
+        val = mant.astype(np.float64)
+        val *= _POW10S[np.clip(scale + _POW_OFFSET, 0, _POW10S.size - 1)]
+        if nsign:
+            np.negative(val, out=val, where=sign & (p == 45))
         return val, stop
 
 
-_ZERO = np.array([48], dtype=np.uint8)
+def _digit_word(w: np.ndarray, n: int):
+    """Value of the last ``n`` bytes of each 8-byte word as decimal digits, and whether they all are digits."""
+    if n < 8:
+        keep = np.uint64(((1 << (8 * n)) - 1) << (8 * (8 - n)))
+        w = (w & keep) | (_THREES & ~keep)  # leading bytes -> '0'
+    ok = ((w & _HIGH) == _THREES) & (((w + _SIXES) & _HIGH) == _THREES)
+    return _eight_digits(w), ok
+
+
+_PAD = 8
+_BYTE = np.uint64(0xFF)
+_HIGH, _THREES, _SIXES = np.uint64(0xF0F0F0F0F0F0F0F0), np.uint64(0x3030303030303030), np.uint64(0x0606060606060606)
 _M1, _M2, _M3 = np.uint64(0x0F0F0F0F0F0F0F0F), np.uint64(0x00FF00FF00FF00FF), np.uint64(0x0000FFFF0000FFFF)
 
 
@@ -134,7 +154,9 @@ def _eight_digits(w: np.ndarray) -> np.ndarray:
         return ((w & _M3) * np.uint64(42949672960001)) >> np.uint64(32)
 
 
-_POW10 = np.array([float(f"1e{k}") for k in range(0, 330)])  # correctly rounded; inf beyond 1e308
+_POW_OFFSET = 400
+# 10**k for k = -400..400, each correctly rounded (0 below 1e-324, inf above 1e308)
+_POW10S = np.array([float(f"1e{k}") for k in range(-_POW_OFFSET, _POW_OFFSET + 1)])
 
 
 class ValueReader:
