@@ -200,3 +200,49 @@ def test_cache_hit_and_invalidation(tmp_path):
     assert float(g3.values.mean()) == pytest.approx(2.0 * BOHR**-3, rel=1e-12)
     orbtool.io.read_grid(f, cache=False)
     assert len(list((tmp_path / "cache").glob("*.npz"))) == 2  # one per (source state, options) key
+
+
+def test_many_chunks_and_odd_values(tmp_path, monkeypatch):
+    # small chunks force block boundaries inside numbers, lines and between spin blocks;
+    # three-digit exponents and values with another layout go through the general parser
+    import orbtool.io._bulk as bulk_mod
+    monkeypatch.setattr(bulk_mod, "_CHUNK", 4096)
+    atoms = bulk("Si", cubic=True)
+    rng = np.random.default_rng(8)
+    data = rng.lognormal(-3.0, 3.0, (20, 18, 16)) * rng.choice([-1.0, 1.0], (20, 18, 16))
+    data[3, 4, 5], data[10, 1, 2] = 1.5e-120, -2.5e+150
+    f = tmp_path / "big.cube"
+    write(f, atoms, data=data)
+    np.testing.assert_allclose(orbtool.io.read_grid(f, quantity="raw", cache=False).values,
+                               read_cube_data(str(f))[0], rtol=1e-10, atol=0)
+    c, _ = _vasp_density(tmp_path, "CHGCAR_big", spin=True)
+    ref = VaspChargeDensity(str(c))
+    grids = orbtool.io.read_grids(c, cache=False)
+    np.testing.assert_allclose(grids[0].values, ref.chg[0], rtol=1e-10)
+    np.testing.assert_allclose(grids[1].values, ref.chgdiff[0], rtol=1e-10, atol=1e-14)
+
+
+def test_chgcar_in_the_codes_own_layout(tmp_path):
+    # VASP manual (CHGCAR page): values as E18.11 ("0.12345678901E+03"), five per line, x fastest;
+    # after the augmentation blocks of a spin-polarised run a line of per-atom moments precedes
+    # the second block's counts
+    atoms = bulk("GaAs", "zincblende", a=5.65)
+    rng = np.random.default_rng(9)
+    rho, mag = rng.random((5, 6, 7)) * 0.05, rng.random((5, 6, 7)) * 0.01 - 0.005
+    vol = atoms.get_volume()
+
+    def block(x):
+        flat = (x * vol).ravel(order="F")
+        rows = [" ".join(f"{v:18.11E}" for v in flat[i:i + 5]) for i in range(0, flat.size, 5)]
+        return "\n".join(rows) + "\n"
+
+    pos = "\n".join(" ".join(f"{c:.8f}" for c in p) for p in atoms.get_scaled_positions())
+    head = ("GaAs\n   1.00000000000000\n" + "\n".join(" ".join(f"{c:.10f}" for c in v) for v in atoms.cell)
+            + f"\n   Ga   As\n     1     1\nDirect\n{pos}\n\n    5    6    7\n")
+    aug = "augmentation occupancies   1  3\n  0.1E+00  0.2E+00 -0.3E+00\naugmentation occupancies   2  1\n  0.5E+00\n"
+    f = tmp_path / "CHGCAR"
+    f.write_text(head + block(rho) + aug + "  0.100E+01  0.000E+00\n    5    6    7\n" + block(mag) + aug)
+    total, m = orbtool.io.read_grids(f, cache=False)
+    np.testing.assert_allclose(total.values, rho, rtol=1e-10)
+    np.testing.assert_allclose(m.values, mag, rtol=1e-9, atol=1e-15)
+    assert m.name == "magnetisation"

@@ -100,3 +100,21 @@ def test_pdos_text_errors(tmp_path, text, line):
     with pytest.raises(InputFormatError) as err:
         orbtool.io.read_pdos(f)
     assert err.value.line == line and err.value.path == str(f)
+
+
+def test_content_sniffing_ignores_names(tmp_path):
+    # a renamed cube, DOSCAR and PROCAR are still recognised by their content
+    from pathlib import Path
+
+    from ase.io import write
+
+    from orbtool.io.registry import guess_format
+    fix = Path(__file__).parent / "fixtures" / "io" / "vasp_spin"
+    write(tmp_path / "a.dat", bulk("Si", cubic=True), data=np.ones((2, 2, 2)), format="cube")
+    (tmp_path / "b.dat").write_text((fix / "DOSCAR").read_text())
+    (tmp_path / "c.dat").write_text((fix / "PROCAR").read_text())
+    assert guess_format(tmp_path / "a.dat", "grid").name == "cube"
+    assert guess_format(tmp_path / "b.dat", "pdos").name == "doscar"
+    assert guess_format(tmp_path / "c.dat", "projections").name == "procar"
+    with pytest.raises(InputFormatError, match="cannot tell the format"):
+        guess_format(tmp_path / "b.dat", "grid")
