@@ -228,8 +228,8 @@ def nearest_atom_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, 
             for c in np.unique(count):
                 m = count == c
                 cc = cs[m][kc[m]].reshape(-1, c)
-                if level == 1:
-                    out += _finish_points(ic[m], cc, proj, norm2, owner, sums[0], children, nat + 1)
+                if level <= _FINISH_LEVEL:
+                    out += _finish_points(ic[m], cc, proj, norm2, owner, sums[0], 2 ** level, nat + 1)
                     continue
                 child = (ic[m][:, None, :] * 2 + children[None, :, :]).reshape(-1, 3)
                 next_groups.setdefault(int(c), []).append((child, np.repeat(cc, 8, axis=0)))
@@ -239,24 +239,31 @@ def nearest_atom_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, 
     return out[:nat]
 
 
-def _finish_points(blocks, cand, proj, norm2, owner, values, children, nbin):
-    """Nearest-candidate assignment of the 8 points of each 2×2×2 block.
+#: blocks still split at this level (4×4×4 points) are finished point by point
+_FINISH_LEVEL = 2
 
-    The score of candidate j at point x = 2I + o splits into a per-block part
-    |a_j|² − 2(2I)·proj_j and a per-offset part −2 o·proj_j, so the 8 points
-    are handled without repeating the candidate lists.
+
+def _finish_points(blocks, cand, proj, norm2, owner, values, size, nbin):
+    """Nearest-candidate assignment of the size³ points of each block.
+
+    The score of candidate j at point x = size·I + o splits into a per-block
+    part |a_j|² − 2(size·I)·proj_j and a per-offset part −2 o·proj_j, so the
+    points are handled without repeating the candidate lists.
     """
+    r = np.arange(size)
+    children = np.stack(np.meshgrid(r, r, r, indexing="ij"), -1).reshape(-1, 3)
+    npt = len(children)
     pc = proj[cand]                                                   # (n, c, 3)
-    base = 2 * blocks
+    base = size * blocks
     score = norm2[cand] - 2.0 * np.einsum("nci,ni->nc", pc, base.astype(float))
     n, c = cand.shape
-    # one matrix product for all (block, candidate) rows: (n·c, 3) @ (3, 8)
-    score8 = score[:, :, None] - 2.0 * (pc.reshape(n * c, 3) @ children.T.astype(float)).reshape(n, c, 8)
+    # one matrix product for all (block, candidate) rows: (n·c, 3) @ (3, npt)
+    score8 = score[:, :, None] - 2.0 * (pc.reshape(n * c, 3) @ children.T.astype(float)).reshape(n, c, npt)
     if c == 2:
         second = score8[:, 1, :] < score8[:, 0, :]
         label = np.where(second, owner[cand[:, 1]][:, None], owner[cand[:, 0]][:, None])
     else:
-        best = np.argmin(score8, axis=1)                                # (n, 8)
+        best = np.argmin(score8, axis=1)                                # (n, npt)
         label = owner[np.take_along_axis(cand, best, axis=1)]
     n2, n3 = values.shape[1], values.shape[2]
     lin0 = (base[:, 0] * n2 + base[:, 1]) * n3 + base[:, 2]
