@@ -144,6 +144,8 @@ def test_lost_second_moment_of_the_dangling_neighbour():
     assert row[0].host_recursion.a[0] == pytest.approx(EPS0, abs=1e-5)
     assert row[0].host_recursion.b[0] ** 2 == pytest.approx(T1**2 + T2**2, abs=1e-4)
     assert "lost" in cmp.summary()
+    table = cmp.to_dict()
+    assert table["rows"][0]["variance_change"] == pytest.approx(row[table["rows"][0]["atom"]].variance_change)
 
 
 def test_alignment_by_far_potential_and_by_far_pdos(case):

@@ -179,6 +179,19 @@ class MomentComparison:
     shift: float
     provenance: tuple = field(default_factory=tuple)
 
+    def to_dict(self) -> dict:
+        """Plain numbers for tables and JSON: window, shift, one dict per row
+        and the means of the centre shift and variance change over rows (eV, eV²)."""
+        rows = [{"atom": r.atom, "host_atom": r.host_atom, "element": r.element, "orbital": r.orbital,
+                 "spin": r.spin, "host_weight": r.host.weight, "defect_weight": r.defect.weight,
+                 "host_centre": r.host.centre, "defect_centre": r.defect.centre, "centre_shift": r.centre_shift,
+                 "host_variance": r.host.variance, "defect_variance": r.defect.variance,
+                 "variance_change": r.variance_change} for r in self.rows]
+        return {"window": list(self.window), "shift": self.shift, "rows": rows,
+                "mean_centre_shift": float(np.mean([r["centre_shift"] for r in rows])),
+                "mean_variance_change": float(np.mean([r["variance_change"] for r in rows])),
+                "provenance": list(self.provenance)}
+
     def summary(self) -> str:
         lines = [f"PDOS moments of the vacancy neighbours over {self.window[0]:.3f} … {self.window[1]:.3f} eV "
                  f"(host scale; defect energies shifted by {self.shift:+.4f} eV)",
