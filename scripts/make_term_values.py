@@ -1,12 +1,15 @@
-"""Compute the valence orbital energies ("term values") shipped in orbtool/data/term_values.json.
+"""Compute the valence orbital energies ("term values") shipped in orbtool/data/term_values_lda.json.
 
 Method
 ------
 Spherically averaged, spin-restricted Kohn–Sham calculations of the neutral free atoms in their
 ground-state configuration (fractional, equal occupation of the partially filled shell, as pyscf's
 ``AtomSphAverageRKS`` does), local-density approximation (Slater exchange + VWN5 correlation,
-``xc="lda,vwn"``), all-electron ANO-RCC basis truncated to the occupied shells + 3 contractions per l ≤ 2 and one f,
-radial × angular grid (150, 146). Two columns are written:
+``xc="lda,vwn"``), all-electron ANO-RCC basis (B. O. Roos et al., J. Phys. Chem. A 108, 2851 (2004)
+and sequels) — uncontracted primitives (l ≤ 2) for the non-relativistic column, the relativistic
+contractions truncated to occupied + 3 per l for the relativistic one (see ``basis_for``) — radial ×
+angular grid (150, 146) (spherical atoms; a (300, 146) grid changes Ga's levels by < 0.1 meV).
+Two columns are written:
 
 * ``nr`` — non-relativistic, directly comparable with the NIST LDA atomic reference data of
   S. Kotochigova, Z. H. Levine, E. L. Shirley, M. D. Stiles and C. W. Clark, NIST Standard Reference
@@ -19,7 +22,7 @@ empty valence p shell (H, alkali and alkaline-earth metals) the lowest unoccupie
 neutral atom is stored instead and flagged ``p_unoccupied`` (it is basis-sensitive). The d column is
 the highest occupied d shell (the filled semicore d of groups 12–15), absent otherwise.
 
-Run: ``python scripts/make_term_values.py [--out PATH] [ELEMENTS...]`` (about ten minutes on one core).
+Run: ``python scripts/make_term_values.py [--out PATH] [ELEMENTS...]`` (about half an hour on one core).
 """
 
 from __future__ import annotations
@@ -42,18 +45,36 @@ XC = "lda,vwn"
 GRID = (150, 146)
 
 
-def trimmed_basis(symbol: str):
-    """ANO-RCC with, per l, the occupied shells plus EXTRA_CONTRACTIONS natural-orbital contractions
-    (l ≤ 2) or one (f); g and higher dropped. The ANOs are ordered by occupation, so this is the
-    usual way of truncating an ANO set."""
+def basis_for(symbol: str, mode: str):
+    """ANO-RCC functions for one atom.
+
+    ``"uncontracted"``: every distinct primitive with l ≤ 2 as its own function (used for the
+    non-relativistic column: the ANO-RCC contractions are relativistic and would bias it).
+    ``"trimmed"``: per l the occupied shells plus EXTRA_CONTRACTIONS natural-orbital contractions
+    (l ≤ 2) and one f; the ANOs are ordered by occupation, so this is the usual truncation. Used for
+    the scalar-relativistic column, for which the contractions were made; it agrees with the
+    uncontracted basis to ~0.01 eV (Sn 5s/5p, checked when the table was produced).
+    ``"full"``: all contractions of the file.
+    """
     from pyscf import gto
     from pyscf.data import elements
 
+    shells = gto.basis.load(BASIS, symbol)
+    if mode == "full":
+        return shells
+    if mode == "uncontracted":
+        seen, out = set(), []
+        for shell in shells:
+            for row in shell[1:]:
+                if shell[0] <= 2 and (shell[0], row[0]) not in seen:
+                    seen.add((shell[0], row[0]))
+                    out.append([shell[0], [row[0], 1.0]])
+        return out
     config = elements.CONFIGURATION[elements.charge(symbol)]
     keep = {ll: int(np.ceil(config[ll] / (2 * (2 * ll + 1)))) + EXTRA_CONTRACTIONS for ll in range(3)}
     keep[3] = 1
     out = []
-    for shell in gto.basis.load(BASIS, symbol):
+    for shell in shells:
         ll = shell[0]
         if ll > 3:
             continue
@@ -63,13 +84,17 @@ def trimmed_basis(symbol: str):
     return out
 
 
+BASIS_MODE = {"nr": "uncontracted", "sr": "trimmed"}
+
+
 def atom_levels(symbol: str, relativistic: bool):
     """Return {l: sorted unique eigenvalues (Ha)}, {l: electrons in l} for one spherical atom."""
     from pyscf import gto, scf
     from pyscf.data import elements
     from pyscf.scf import atom_ks
 
-    mol = gto.M(atom=f"{symbol} 0 0 0", basis={symbol: trimmed_basis(symbol)}, verbose=0, spin=None)
+    mode = BASIS_MODE["sr" if relativistic else "nr"]
+    mol = gto.M(atom=f"{symbol} 0 0 0", basis={symbol: basis_for(symbol, mode)}, verbose=0, spin=None)
     mol.spin = mol.nelectron % 2
     mol.build()
     mf = atom_ks.AtomSphAverageRKS(mol)
@@ -124,15 +149,19 @@ def valence(levels, config):
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("elements", nargs="*", default=list(ELEMENTS))
+    ap.add_argument("--columns", default="nr,sr", help="which columns to compute (nr, sr)")
+    ap.add_argument("--update", action="store_true", help="update the given columns of an existing --out file")
     ap.add_argument("--out", default=str(Path(__file__).resolve().parents[1] / "orbtool" / "data" /
                                          "term_values_lda.json"))
     args = ap.parse_args(argv)
     import pyscf
 
-    table = {}
+    old = json.loads(Path(args.out).read_text()) if args.update else None
+    table = dict(old["elements"]) if old else {}
+    columns = [c for c in ("nr", "sr") if c in args.columns.split(",")]
     for sym in args.elements:
-        entry = {}
-        for tag, rel in (("nr", False), ("sr", True)):
+        entry = dict(table.get(sym, {}))
+        for tag, rel in [(c, c == "sr") for c in columns]:
             t0 = time.time()
             levels, config, etot = atom_levels(sym, rel)
             val, flags = valence(levels, config)
@@ -140,13 +169,16 @@ def main(argv=None):
             entry[tag + "_hartree"] = {k: round(v, 6) for k, v in val.items()}
             entry[tag + "_total_energy_hartree"] = round(etot, 6)
             entry["flags"] = flags
+            entry[tag + "_basis"] = {"uncontracted": "ano-rcc primitives l<=2, uncontracted",
+                                     "trimmed": f"ano-rcc, occupied + {EXTRA_CONTRACTIONS} contractions per "
+                                                "l<=2, one f", "full": "ano-rcc, all contractions"}[BASIS_MODE[tag]]
             print(f"{sym:2s} {tag} {time.time() - t0:6.1f}s  " +
                   "  ".join(f"{k} {v:9.4f}" for k, v in entry[tag].items()), flush=True)
         table[sym] = entry
     doc = {
         "description": "Valence orbital energies (eV, negative = bound) of neutral spherical atoms",
-        "method": f"pyscf {pyscf.__version__} AtomSphAverageRKS, xc={XC}, basis={BASIS} (occupied + "
-                  f"{EXTRA_CONTRACTIONS} ANO contractions per l<=2, one f), grid={GRID}; "
+        "method": f"pyscf {pyscf.__version__} AtomSphAverageRKS, xc={XC}, basis={BASIS} (contractions per "
+                  f"element and column under '<column>_basis'), grid={GRID}; "
                   "'nr' non-relativistic, 'sr' scalar-relativistic sfx2c1e",
         "script": "scripts/make_term_values.py",
         "date": datetime.date.today().isoformat(),

@@ -117,6 +117,6 @@ def test_predict_and_inverse(family):
     shift = next(c for c in changes if c.knob == "onsite_shift")
     if shift.reached:  # the shifted model indeed sits within 0.1 eV of an edge
         lv = res.predict(case="c3", onsite_shift=shift.change, labels=False).level
-        assert lv <= 0.1 + 1e-6 or 1.2 - lv <= 0.1 + 1e-6
+        assert lv <= 0.1 + 1e-3 or 1.2 - lv <= 0.1 + 1e-3
     text = res.explain(case="c3")
     assert "above the VBM" in text and "breathing" in text

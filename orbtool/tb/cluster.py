@@ -20,7 +20,7 @@ hybrids (full clusters); an integer picks a level by rank (0 = lowest).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -126,6 +126,7 @@ class ClusterModel:
     r_d: dict = field(default_factory=dict)
     modes: dict = field(default_factory=dict)
     notes: tuple = ()
+    options: dict = field(default_factory=dict)
 
     # ------------------------------------------------------------------ construction
     @classmethod
@@ -215,13 +216,19 @@ class ClusterModel:
                    s_fraction=float(s_fraction), level=level,
                    electrons=electrons if electrons is not None else _formal_electrons(els[: len(first)], charge),
                    point_group=str(getattr(site, "point_group", "C1")), operations=ops, cell=cell, pbc=pbc,
-                   r_d=dict(r_d or {}), modes=_modes(site, vec[: len(first)]), notes=tuple(notes))
+                   r_d=dict(r_d or {}), modes=_modes(site, vec[: len(first)]), notes=tuple(notes),
+                   options={"onsite": dict(onsite or {}), "charge": charge, "electrons": electrons,
+                            "pair_cutoff": pair_cutoff, "shells": shells})
 
-    def with_site(self, site) -> "ClusterModel":
-        """The same model settings around another site (e.g. another case of a family)."""
-        return ClusterModel.around(site, self.orbitals, replace(self.law, d0=self.law.d0),
-                                   onsite={el: v for el, v in self.onsite.items()}, s_fraction=self.s_fraction,
-                                   level=self.level, shells=int(self.shell.max()), r_d=self.r_d)
+    def with_site(self, site, charge: int | None = None) -> "ClusterModel":
+        """The same settings (distance law with the same d0, term-value source, user on-site energies,
+        hybrid s fraction, level rule, shells, cutoff) around another site, e.g. another case of a family."""
+        o = self.options
+        return ClusterModel.around(site, self.orbitals, self.law, term_values=self.term_source,
+                                   onsite=o.get("onsite") or None, s_fraction=self.s_fraction, level=self.level,
+                                   charge=o.get("charge", 0) if charge is None else charge,
+                                   electrons=o.get("electrons"), shells=o.get("shells"),
+                                   pair_cutoff=o.get("pair_cutoff"), r_d=self.r_d)
 
     # ------------------------------------------------------------------ parameters
     @property

@@ -102,12 +102,32 @@ class _Problem:
         return self.models[case].orbitals in ("hybrid", "sp", "spd")
 
 
+class _SiteOf:
+    """The reference geometry of a model seen as a site (to rebuild the model with another charge)."""
+
+    def __init__(self, model):
+        from types import SimpleNamespace
+
+        self.position = model.site_position
+        self.defect = None
+        n1 = int((model.shell == 1).sum())
+        nb = [SimpleNamespace(index=int(i), element=e, vector=v)
+              for i, e, v in zip(model.indices, model.elements, model.vectors)]
+        self.first_shell, self.second_shell = tuple(nb[:n1]), tuple(nb[n1:])
+        self.point_group, self.operations = model.point_group, model.operations
+        self.distortion_modes = lambda: dict(model.modes)
+
+
 def _collect_models(model, targets):
     models = {}
     for t in targets:
         if t.case in models:
             continue
-        models[t.case] = model if t.site is None else model.with_site(t.site)
+        if t.site is None and t.charge is None:
+            models[t.case] = model
+        else:
+            site = t.site if t.site is not None else _SiteOf(model)
+            models[t.case] = model.with_site(site, charge=t.charge)
     return models
 
 

@@ -43,25 +43,32 @@ class ShallowChange:
     note: str
 
 
+def _margin(level, gap, within, edge):
+    """Distance to the chosen band edge minus ``within`` (eV); ≤ 0 means shallow (or resonant)."""
+    level = np.asarray(level, dtype=float)
+    to_v = level - within
+    to_c = (gap - level - within) if gap is not None else np.full_like(level, np.inf)
+    return {"vbm": to_v, "cbm": to_c}.get(edge, np.minimum(to_v, to_c))
+
+
 def _condition(level, gap, within, edge):
-    near_v = level <= within
-    near_c = (gap - level <= within) if gap is not None else np.zeros_like(level, dtype=bool)
-    return {"vbm": near_v, "cbm": near_c}.get(edge, near_v | near_c)
+    return _margin(level, gap, within, edge) <= 0
 
 
-def _smallest(grid, levels, ok):
-    """Smallest |x| on the grid where ok flips on (linear interpolation of the crossing)."""
-    if not ok.any():
+def _smallest(grid, margin):
+    """Smallest |x| where the margin reaches 0 (linear interpolation between grid points), or None."""
+    k0 = int(np.argmin(np.abs(grid)))
+    if margin[k0] <= 0:
+        return float(grid[k0])
+    flips = np.flatnonzero((margin[:-1] > 0) != (margin[1:] > 0))
+    if not len(flips):
         return None
-    order = np.argsort(np.abs(grid))
-    for k in order:
-        if ok[k]:
-            return float(grid[k])
-    return None
+    xs = grid[flips] + (grid[flips + 1] - grid[flips]) * margin[flips] / (margin[flips] - margin[flips + 1])
+    return float(xs[np.argmin(np.abs(xs))])
 
 
 def smallest_change_to_shallow(fit, within: float = 0.1, edge: str = "nearest", case=None,
-                               max_amplitude: float = 0.5, max_shift: float = 5.0, n_grid: int = 801,
+                               max_amplitude: float = 0.5, max_shift: float = 5.0, n_grid: int = 201,
                                swaps: bool = True) -> list:
     """Smallest structural or chemical change that makes the level shallow (list of ShallowChange).
 
@@ -97,17 +104,15 @@ def smallest_change_to_shallow(fit, within: float = 0.1, edge: str = "nearest", 
 
 
 def _entry(fit, case, knob, unit, grid, lev, gap, within, edge, sigma_level):
-    ok = _condition(lev, gap, within, edge)
-    x = _smallest(grid, lev, ok)
+    x = _smallest(grid, _margin(lev, gap, within, edge))
     if x is None:
         k = int(np.argmin(np.abs(lev - (0 if edge == "vbm" else (gap if edge == "cbm" else lev.min())))))
         return ShallowChange(knob, float("nan"), unit, float("nan"), float(lev[k]), False,
                              f"no change within ±{abs(grid).max():g} {unit} reaches the band edge "
                              f"(level spans {lev.min():.3f}…{lev.max():.3f} eV above the VBM)")
-    k = int(np.argmin(np.abs(grid - x)))
-    slope = np.gradient(lev, grid)[k]
+    slope = float(np.interp(x, grid, np.gradient(lev, grid)))
     sig = sigma_level / abs(slope) if slope != 0 else float("inf")
-    return ShallowChange(knob, x, unit, float(sig), float(lev[k]), True,
+    return ShallowChange(knob, x, unit, float(sig), float(np.interp(x, grid, lev)), True,
                          f"level moves {slope:+.3f} eV per {unit} here")
 
 
@@ -125,7 +130,9 @@ def _swaps(fit, case, model, gap, within, edge):
             p = predict(fit, case=case, swap={old: new}, labels=False)
             ok = bool(_condition(np.array([p.level]), gap, within, edge)[0])
             dist = min(p.level, (gap - p.level) if gap is not None else np.inf)
-            cands.append((not ok, abs(dist - within) if not ok else 0.0, new, p, tv))
+            size = abs(tv.p - model.onsite[old][1]) + abs(tv.s - model.onsite[old][0])
+            cands.append((not ok, size if ok else abs(dist - within), new, p, tv))
+        # first the swaps that work, smallest change of term values first; then the nearest misses
         cands.sort(key=lambda c: (c[0], c[1]))
         for miss, _, new, p, tv in cands[:3]:
             ref = term_values(old, model.term_source) if old in available_elements(model.term_source) else None
@@ -171,7 +178,8 @@ def explain(fit, case=None) -> str:
     if len(g):
         contrib = np.abs(g) * fit.sigma
         k = int(np.argmax(contrib))
-        lines.append(f"The largest source of uncertainty is {fit.free[k]} (±{contrib[k]:.3f} eV on the level).")
+        lines.append(f"The level is most sensitive to {fit.free[k]}: its 1σ alone moves the level ±{contrib[k]:.3f} eV "
+                     f"(parameter correlations bring the total to ±{p.sigma:.3f} eV).")
     if fit.at_bounds:
         lines.append(f"Caution: {', '.join(fit.at_bounds)} stopped at a bound of its range.")
     return "\n".join(lines)

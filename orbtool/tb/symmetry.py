@@ -199,15 +199,22 @@ def label_levels(energies, vectors, model_vectors, group: str, ops, lmax: int, h
     reps = [orbital_representation(ops[c[0]], model_vectors, lmax, hybrid) for c in classes]
     if any(r is None for r in reps):
         return out
+    V = np.asarray(vectors)
+    # χ_level(class) = <v|U|v> for every level at once; a multiplet's character is the sum over its members
+    diag = np.stack([np.einsum("im,im->m", V, U @ V) for U in reps])  # (nclass, nlevel)
+    _, table = CHARACTER_TABLES[group]
+    order = sum(len(c) for c in classes)
+    names = list(table)
+    X = np.array([[table[nm][k] for k in cols] for nm in names], dtype=float)  # (nirrep, nclass)
+    sizes = np.array([len(c) for c in classes], dtype=float)
     start = 0
     while start < len(E):
         stop = start + 1
         while stop < len(E) and abs(E[stop] - E[start]) < tol_e:
             stop += 1
-        Psi = vectors[:, start:stop]
-        chars = [(c, float(np.trace(Psi.T @ U @ Psi)), k) for c, U, k in zip(classes, reps, cols)]
-        mult = decompose(group, chars, classes)
-        good = [(name, m) for name, m in mult.items() if abs(m - round(m)) < 0.1 and round(m) > 0]
+        chi = diag[:, start:stop].sum(1)
+        mult = X @ (sizes * chi) / order
+        good = [(names[k], m) for k, m in enumerate(mult) if abs(m - round(m)) < 0.1 and round(m) > 0]
         if len(good) == 1 and round(good[0][1]) == 1:
             label = good[0][0].lower()
         elif good:

@@ -37,6 +37,8 @@ class Target:
         The site of this case (the fit builds the case's cluster from it); None = the model's own site.
     labels : dict
         Free labels (cation, anion, ...).
+    charge : int or None
+        Charge state of the case (sets the formal electron count of the hybrid model); None = the model's.
     """
 
     case: str
@@ -50,6 +52,7 @@ class Target:
     weight: float = 1.0
     site: object = None
     labels: dict = field(default_factory=dict)
+    charge: int | None = None
 
     def __post_init__(self):
         for name in ("above_vbm", "sigma_level", "sigma_s", "sigma_shell", "weight"):
@@ -67,7 +70,7 @@ class Target:
                 raise FitError(f"target {self.case!r}: {name} must be finite or None, got {v!r}")
 
 
-def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_character, labels):
+def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_character, labels, charge):
     above = float(state.above_vbm)
     s_frac = shell1 = None
     ow = getattr(state, "orbital_weights", None) or {}
@@ -83,7 +86,8 @@ def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_cha
     elif getattr(state, "below_cbm", None) is not None:
         gap = above + float(state.below_cbm)
     return Target(case=name, above_vbm=above, sigma_level=sigma_level, s_fraction=s_frac, sigma_s=sigma_s,
-                  shell1=shell1, sigma_shell=sigma_shell, gap=gap, site=site, labels=dict(labels))
+                  shell1=shell1, sigma_shell=sigma_shell, gap=gap, site=site, labels=dict(labels),
+                  charge=charge)
 
 
 def targets_from_case(case, site=None, state=None, *, sigma_level: float = 0.05, sigma_s: float = 0.05,
@@ -117,5 +121,6 @@ def targets_from_case(case, site=None, state=None, *, sigma_level: float = 0.05,
         state = states[0]
     states = state if isinstance(state, (list, tuple)) else [state]
     labels = getattr(case, "labels", {}) or {}
-    return [_state_targets(case.name, s, site, sigma_level, sigma_s, sigma_shell, use_character, labels)
+    charge = getattr(case, "charge", None)
+    return [_state_targets(case.name, s, site, sigma_level, sigma_s, sigma_shell, use_character, labels, charge)
             for s in states]

@@ -85,10 +85,9 @@ def _compiled(fit, case, geometry, swap):
     return model.compile(geometry)
 
 
-def _batch_levels(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
-    """(B,) defect level above the VBM and the Levels object for parameter batch X (B, nparam)."""
-    prob = fit.problem
-    p = prob.case_params(case, X)
+def _params(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
+    """Model parameters (arrays over the batch X (B, nparam)) with the knobs applied, and the VBM."""
+    p = fit.problem.case_params(case, X)
     vbm = p.pop("vbm")
     full = cc.model.defaults()
     full.update(p)
@@ -96,18 +95,39 @@ def _batch_levels(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
     first_species = {cc.model.elements[i] for i in np.flatnonzero(cc.first)}
     for el in first_species:
         full[f"shift_{el}"] = full[f"shift_{el}"] + np.asarray(onsite_shift)
+    return full, vbm
+
+
+def _batch_levels(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
+    """(B,) defect level above the VBM and the Levels object for parameter batch X (B, nparam)."""
+    full, vbm = _params(fit, case, cc, X, coupling_scale, onsite_shift)
     lv = cc.solve(full)
     return lv.level - vbm, lv, vbm
 
 
-def _gradient(fit, case, cc, **knobs):
+def _gradient(fit, case, cc, lv=None, **knobs):
+    """∂level/∂θ for the free parameters by the Hellmann–Feynman theorem, ∂E/∂θ = <ψ|∂H/∂θ|ψ>
+    (H. Hellmann 1937; R. P. Feynman, Phys. Rev. 56, 340 (1939)), averaged over the defect multiplet;
+    ∂H/∂θ by finite differences of H alone, so only one diagonalisation is needed."""
     free_idx = np.array([fit.names.index(n) for n in fit.free], dtype=int)
+    if not len(free_idx):
+        return np.zeros(0)
+    if lv is None:
+        _, lv, _ = _batch_levels(fit, case, cc, fit.values[None], **knobs)
     x = fit.values
-    h = 1e-5 * np.maximum(1.0, np.abs(x[free_idx]))
+    h = 1e-6 * np.maximum(1.0, np.abs(x[free_idx]))
+    h = np.where(x[free_idx] + h > np.array([fit.bounds[n][1] for n in fit.free]), -h, h)
     X = np.repeat(x[None], len(free_idx) + 1, axis=0)
     X[np.arange(1, len(free_idx) + 1), free_idx] += h
-    lev, _, _ = _batch_levels(fit, case, cc, X, **knobs)
-    return (lev[1:] - lev[0]) / h
+    full, vbm = _params(fit, case, cc, X, **knobs)
+    H = cc.hamiltonian(full)
+    dH = (H[1:] - H[0]) / h[:, None, None]
+    E, V = lv.energies[0], lv.vectors[0]
+    members = np.flatnonzero(np.abs(E - lv.level[0]) < 1e-5)
+    Vm = V[:, members]
+    g = np.einsum("im,kij,jm->k", Vm, dH, Vm) / len(members)
+    vbm = np.broadcast_to(np.asarray(vbm, dtype=float), (len(X),))
+    return g - (vbm[1:] - vbm[0]) / h
 
 
 def verdict_for(level, sigma, gap, within):
@@ -134,7 +154,7 @@ def predict(fit, geometry=None, swap=None, coupling_scale=1.0, onsite_shift=0.0,
     knobs = dict(coupling_scale=coupling_scale, onsite_shift=onsite_shift)
     lev, lv, vbm = _batch_levels(fit, case, cc, fit.values[None], **knobs)
     level = float(lev[0])
-    g = _gradient(fit, case, cc, **knobs)
+    g = _gradient(fit, case, cc, lv, **knobs)
     sigma = float(np.sqrt(max(g @ fit.covariance @ g, 0.0))) if len(g) else 0.0
     band = None
     if samples:
@@ -164,6 +184,7 @@ def _sampled_band(fit, case, cc, samples, seed, knobs):
 
 
 def _labels(fit, cc, lv):
+    """Irrep labels of the levels (class/column matching cached per model)."""
     model = cc.model
     key = ("classes", id(model.operations), model.point_group)
     cache = fit._cache
