@@ -157,6 +157,21 @@ def test_never_writes_beside_input(tmp_path):
     assert sorted(p.name for p in f.parent.iterdir()) == ["x.cube"]
 
 
+@pytest.mark.parametrize("reader", [
+    lambda p: orbtool.io.read_pdos(p, format="doscar"), lambda p: orbtool.io.read_projections(p, format="procar"),
+    lambda p: orbtool.io.read_pdos(p, format="qe-pdos"), lambda p: orbtool.io.read_pdos(p, format="cp2k-pdos"),
+    lambda p: orbtool.io.read_pdos(p, format="orbtool-pdos"), orbtool.io.read_energy, orbtool.io.read_structure,
+    lambda p: orbtool.io.read_projections(p, format="orbtool-projections"),
+    lambda p: orbtool.io.read_grid(p, format="xsf"), lambda p: orbtool.io.read_grid(p, format="npz")])
+@pytest.mark.parametrize("content", [b"", b"\x00\x01\x02garbage\xff" * 50, b"1 2 3\n4 5 6\n"])
+def test_other_readers_refuse_empty_and_garbage(tmp_path, reader, content):
+    f = tmp_path / "x.pdos_atm#1(Ga)_wfc#1(s)"
+    f.write_bytes(content)
+    with pytest.raises(InputFormatError) as err:
+        reader(f)
+    assert err.value.path is not None
+
+
 # ------------------------------------------------------------------------- fuzzing
 def _sources():
     return {
@@ -172,7 +187,28 @@ def _sources():
                lambda p: orbtool.io.read_pdos(p, format="qe-pdos")),
         "cp2k": ((FIX / "cp2k" / "demo-k1-1.pdos").read_bytes(), "demo-k1-1.pdos",
                  lambda p: orbtool.io.read_pdos(p, format="cp2k-pdos")),
+        "xsf": (_xsf_bytes(), "x.xsf", lambda p: orbtool.io.read_grids(p, format="xsf", cache=False)),
+        "orbtool-pdos": (_native_bytes("pdos"), "x.pdos.txt", lambda p: orbtool.io.read_pdos(p, format="orbtool-pdos")),
+        "orbtool-projections": (_native_bytes("proj"), "x.proj.txt",
+                                lambda p: orbtool.io.read_projections(p, format="orbtool-projections")),
     }
+
+
+def _xsf_bytes():
+    with tempfile.TemporaryDirectory() as d:
+        write(Path(d) / "x.xsf", bulk("Si"), data=np.random.default_rng(3).random((3, 4, 5)))
+        return (Path(d) / "x.xsf").read_bytes()
+
+
+def _native_bytes(kind):
+    with tempfile.TemporaryDirectory() as d:
+        f = Path(d) / "x.txt"
+        if kind == "pdos":
+            orbtool.io.write_pdos(f, orbtool.io.read_pdos(FIX / "qe_spin"), format="orbtool-text")
+        else:
+            orbtool.io.write_projections(f, orbtool.io.read_projections(FIX / "vasp_nospin" / "PROCAR"),
+                                         format="orbtool-text")
+        return f.read_bytes()
 
 
 SOURCES = _sources()

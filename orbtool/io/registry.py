@@ -185,13 +185,16 @@ def get_format(name: str, kind: str | None = None) -> Format:
                            field="format")
 
 
+_SNIFF_BYTES = 65536  # enough for the structure header of a ~1000-atom CHGCAR
+
+
 def _head_lines(path) -> list[str]:
-    head = read_head(path, 16384)
+    head = read_head(path, _SNIFF_BYTES)
     if not head or b"\x00" in head[:4096]:
         return []
     text = head.decode("utf-8", errors="replace")
     lines = text.splitlines()
-    if not text.endswith("\n") and len(head) == 16384:
+    if not text.endswith("\n") and len(head) == _SNIFF_BYTES:
         lines = lines[:-1]  # the last line may be cut
     return lines
 
