@@ -20,12 +20,10 @@ from .pdos import (
     pdos_figure,
     states_data,
     update_pdos_figure,
-    window_moments,
 )
 
 __all__ = [
     "FAMILY_SOURCE", "family_board", "family_columns", "set_axes",
     "LEVEL_SOURCES", "group_levels", "level_diagram", "level_diagram_data", "update_level_diagram",
     "PDOS_SOURCES", "channel_choices", "pdos_curves", "pdos_figure", "states_data", "update_pdos_figure",
-    "window_moments",
 ]

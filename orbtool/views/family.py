@@ -14,6 +14,7 @@ from typing import Mapping, Sequence
 import numpy as np
 
 from .. import style
+from ._sources import named_sources, remember
 
 __all__ = ["family_columns", "family_board", "numeric_keys", "set_axes", "FAMILY_SOURCE"]
 
@@ -69,6 +70,7 @@ def family_board(cols: Mapping[str, list], *, x: str, y: str = "above_vbm", widt
     if "motif" in cols:
         fig.add_layout(fig.legend[0], "right")
     fig.x_range.range_padding = fig.y_range.range_padding = 0.2
+    remember(fig, {FAMILY_SOURCE: src})
     set_axes(fig, x, y)
     table_cols = [TableColumn(field=k, title=k, formatter=NumberFormatter(format="0.000")
                               if all(isinstance(v, float) for v in cols[k]) else _plain())
@@ -87,7 +89,7 @@ def _plain():
 def set_axes(fig, x: str, y: str) -> None:
     """Point the scatter at columns ``x`` and ``y`` (copies them into the
     plotting columns; the axis labels follow)."""
-    src = fig.select_one({"name": FAMILY_SOURCE})
+    src = named_sources(fig, (FAMILY_SOURCE,))[FAMILY_SOURCE]
     data = dict(src.data)
     data["_x"] = list(data[x])
     data["_y"] = list(data[y])

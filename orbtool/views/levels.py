@@ -23,6 +23,7 @@ from typing import Mapping
 import numpy as np
 
 from .. import style
+from ._sources import named_sources, remember
 
 __all__ = ["level_diagram_data", "level_diagram", "update_level_diagram", "LEVEL_SOURCES", "group_levels"]
 
@@ -94,7 +95,7 @@ def level_diagram_data(prediction, dangling: float | None = None, *, window: flo
 
 
 def level_diagram(data: Mapping[str, Mapping], *, y_range: tuple[float, float], title: str = "Defect level",
-                  width: int = 520, height: int = 440):
+                  width: int = 480, height: int = 440):
     """The interaction diagram figure, from :func:`level_diagram_data` output.
 
     ``y_range`` (eV) is fixed at construction so moving a knob does not
@@ -130,11 +131,13 @@ def level_diagram(data: Mapping[str, Mapping], *, y_range: tuple[float, float], 
                 line_width="width")
     fig.text(x="x1", y="y", text="text", source=src[LEVEL_SOURCES[1]], text_font_size="9pt", x_offset=6,
              text_baseline="middle", text_color="colour")
+    remember(fig, src)
     return style.style_figure(fig)
 
 
 def update_level_diagram(fig, data: Mapping[str, Mapping]) -> None:
     """Reassign the data of every named source of ``fig``."""
+    sources = named_sources(fig, LEVEL_SOURCES)
     for n in LEVEL_SOURCES:
         if n in data:
-            fig.select_one({"name": n}).data = dict(data[n])
+            sources[n].data = dict(data[n])

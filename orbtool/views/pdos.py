@@ -17,8 +17,9 @@ from typing import Mapping
 import numpy as np
 
 from .. import style
+from ._sources import named_sources, remember
 
-__all__ = ["channel_choices", "pdos_curves", "window_moments", "states_data", "pdos_figure", "update_pdos_figure",
+__all__ = ["channel_choices", "pdos_curves", "states_data", "pdos_figure", "update_pdos_figure",
            "PDOS_SOURCES"]
 
 #: names of the data sources inside the figure (``fig.select_one({"name": ...})``)
@@ -133,27 +134,6 @@ def pdos_curves(picks: Mapping[str, Mapping], defect_pdos, host_pdos=None, *, de
     return cols
 
 
-def window_moments(x: np.ndarray, y: np.ndarray, lo: float, hi: float) -> dict[str, float]:
-    """Zeroth, first and second central moments of a curve inside [lo, hi].
-
-    μ0 = ∫ y dE (states), centre = ∫ E y dE / μ0 (eV), width = √(∫ (E − centre)² y dE / μ0) (eV);
-    trapezoid rule on the curve's own points (the moment definition of
-    F. Cyrot-Lackmann, Adv. Phys. 16, 393 (1967), applied to a window).
-    """
-    x = np.asarray(x, float)
-    y = np.asarray(y, float)
-    m = (x >= lo) & (x <= hi)
-    if m.sum() < 2:
-        return {"states": 0.0, "centre": float("nan"), "width": float("nan")}
-    xs, ys = x[m], y[m]
-    m0 = float(np.trapezoid(ys, xs))
-    if m0 <= 0:
-        return {"states": m0, "centre": float("nan"), "width": float("nan")}
-    c = float(np.trapezoid(xs * ys, xs)) / m0
-    w = float(np.sqrt(max(np.trapezoid((xs - c) ** 2 * ys, xs) / m0, 0.0)))
-    return {"states": m0, "centre": c, "width": w}
-
-
 def states_data(states, vbm_shift: float = 0.0, ymax: float = 1.0) -> dict[str, list]:
     """Markers for in-gap states: ``x`` (eV, host scale minus VBM), ``y``,
     ``text`` (occupation as "occ 1.00/2"), from DefectState-like objects
@@ -212,12 +192,14 @@ def pdos_figure(lines: Mapping, states: Mapping | None = None, *, gap: float | N
     fig.legend.location = "top_left"
     fig.legend.click_policy = "hide"
     fig.y_range.start = 0
+    remember(fig, {PDOS_SOURCES[0]: src, PDOS_SOURCES[1]: st})
     return style.style_figure(fig)
 
 
 def update_pdos_figure(fig, lines: Mapping | None = None, states: Mapping | None = None) -> None:
     """Replace the data of the figure's sources (nothing else changes)."""
+    sources = named_sources(fig, PDOS_SOURCES)
     if lines is not None:
-        fig.select_one({"name": PDOS_SOURCES[0]}).data = dict(lines)
+        sources[PDOS_SOURCES[0]].data = dict(lines)
     if states is not None:
-        fig.select_one({"name": PDOS_SOURCES[1]}).data = dict(states)
+        sources[PDOS_SOURCES[1]].data = dict(states)

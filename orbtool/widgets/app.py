@@ -1,0 +1,222 @@
+"""``orbtool.widgets.App``: loader, 3-D structure, PDOS, level explorer and
+(for a family) the family board, as tabs of one panel.
+
+The app only composes the views: analysis comes from
+:func:`orbtool.family.analyze_case` / :func:`orbtool.family.analyze_family`,
+the model from :mod:`orbtool.tb`; every failure becomes a message in the
+tab it concerns.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import ipywidgets as w
+
+from .. import style
+from ._common import attempt, ensure_bokeh, message_html
+from .loader import Loader, load_any
+
+__all__ = ["App", "fit_case"]
+
+_TABS = ("Load", "Structure", "PDOS", "Level explorer", "Family")
+
+
+def fit_case(case, site, state):
+    """Default model for one case: the hybrid dangling-orbital cluster
+    fitted to that case's state (:func:`orbtool.tb.targets_from_case`)."""
+    from .. import tb
+
+    model = tb.ClusterModel.around(site, orbitals="hybrid")
+    return tb.fit(model, tb.targets_from_case(case, site, state))
+
+
+def _fallback_analysis(case, err):
+    """Site and states straight from :func:`case_context` when the case
+    summary step fails; ``error`` keeps what went wrong."""
+    from types import SimpleNamespace
+
+    from .pdos import case_context
+
+    ctx, err2 = attempt(case_context, case)
+    site = ctx["site"] if ctx else None
+    states = ctx["states"] if ctx else []
+    state = max(states, key=lambda s: s.shell_fractions.get(1, 0.0)) if states else None
+    return SimpleNamespace(name=case.name, site=site, states=states, state=state,
+                           error=f"case summary incomplete: {err}", ok=site is not None)
+
+
+def _note(text, kind="warn"):
+    return w.HTML(message_html(text, kind))
+
+
+class App:
+    """The orbtool Jupyter app.
+
+    Parameters
+    ----------
+    case_or_family : DefectCase, Family, str or Path, optional
+        What to show first; a path is read with the loader's rules
+        (folder → case, ``.toml`` → family). Nothing → an empty app with the loader.
+    fit : FitResult, optional
+        Model for the level explorer (default: fitted per case, or shared
+        across the family).
+
+    Attributes
+    ----------
+    widget : ipywidgets.Tab  the app (displaying the App displays it).
+    case, analysis : the case shown and its :class:`orbtool.family.CaseAnalysis`.
+    structure, pdos, levels, board : the component views (None when not available).
+    """
+
+    def __init__(self, case_or_family=None, *, fit=None):
+        ensure_bokeh()
+        self.fit = fit
+        self.family = self.family_analysis = None
+        self.case = self.analysis = None
+        self.structure = self.pdos = self.levels = self.board = None
+        self.loader = Loader(on_load=self._loaded)
+        self.header = w.HTML()
+        self.panes = {t: w.VBox([_note("nothing loaded yet", "info")]) for t in _TABS}
+        self.panes["Load"].children = [self.loader.widget]
+        self.tabs = w.Tab(children=[self.panes[t] for t in _TABS])
+        for i, t in enumerate(_TABS):
+            self.tabs.set_title(i, t)
+        self.widget = w.VBox([self.header, self.tabs])
+        self.widget.add_class("orbtool-app")
+        if case_or_family is not None:
+            if isinstance(case_or_family, (str, Path)):
+                self.loader.path.value = str(case_or_family)
+                self.loader.load(case_or_family)
+            else:
+                self._loaded(case_or_family)
+                self.loader.value = case_or_family
+
+    # -------------------------------------------------------------- loading
+    def _loaded(self, obj):
+        from ..case import DefectCase, Family
+
+        if isinstance(obj, Family):
+            self.show_family(obj)
+        elif isinstance(obj, DefectCase):
+            self.family = self.family_analysis = None
+            self.panes["Family"].children = [_note("a single case is loaded (load a family manifest for the board)",
+                                                   "info")]
+            self.show_case(obj)
+        else:
+            self.show_data(obj)
+
+    def show_family(self, family):
+        """Analyse every case, fit one shared model, fill the board; show the first case."""
+        from ..family import analyze_family
+        from .family import FamilyBoard, board_rows
+
+        fa = analyze_family(family, workers=1, progress=False)
+        self.family, self.family_analysis = family, fa
+        if self.fit is None:
+            fit, err = attempt(fa.shared_fit)
+            self._fit_note = None if err is None else f"no shared fit: {err}"
+            self._family_fit = fit
+        else:
+            self._family_fit = self.fit
+        self.board = FamilyBoard(board_rows(fa), on_select=lambda name: self.show_case(family[name]),
+                                 errors=fa.errors)
+        self.panes["Family"].children = [self.board.widget]
+        ok = [r.name for r in fa.results if r.ok]
+        self.show_case(family[ok[0]] if ok else family[0])
+
+    def show_case(self, case):
+        """Fill the structure, PDOS and level tabs for one case."""
+        from ..family import analyze_case
+
+        self.case = case
+        if self.family_analysis is not None:
+            self.analysis = self.family_analysis[case.name]
+        else:
+            self.analysis, err = attempt(analyze_case, case)
+            if err:
+                self.analysis = _fallback_analysis(case, err)
+        a = self.analysis
+        where = f" — family {self.family.name}" if self.family is not None else ""
+        self.header.value = (f'<div style="font-family:{style.FONT};color:{style.INK}"><b>{case.name}</b>{where}'
+                             + (f" · {a.site.element} vacancy, {a.site.point_group}" if a.site is not None else "")
+                             + "</div>")
+        self._structure_tab(case, a)
+        self._pdos_tab(case, a)
+        self._levels_tab(case, a)
+        self.tabs.selected_index = _TABS.index("Structure")
+
+    def show_data(self, obj):
+        """A single file: a PDOS goes to the PDOS tab, a grid to the structure tab."""
+        from .pdos import PDOSExplorer
+        from .structure import StructureView
+
+        if hasattr(obj, "channels"):
+            self.pdos = PDOSExplorer(defect_pdos=obj)
+            self.panes["PDOS"].children = [self.pdos.widget]
+        elif hasattr(obj, "values") and getattr(obj, "atoms", None) is not None:
+            self.structure = StructureView(obj.atoms, grid=obj)
+            self.panes["Structure"].children = [self.structure.widget]
+        else:
+            raise ValueError(f"nothing to show for a {type(obj).__name__}")
+
+    # ----------------------------------------------------------------- tabs
+    def _state_grid(self, case):
+        for role in ("state", "orbital", "density"):
+            if role in case.grids:
+                return case.grids[role]
+        return None
+
+    def _structure_tab(self, case, a):
+        from .structure import StructureView
+
+        view, err = attempt(StructureView, case.defect, a.site, self._state_grid(case))
+        self.structure = view
+        notes = [] if a.error is None else [_note(a.error)]
+        self.panes["Structure"].children = ([view.widget] if view else [_note(err, "error")]) + notes
+
+    def _pdos_tab(self, case, a):
+        from .pdos import PDOSExplorer, case_context
+
+        if case.defect_pdos is None and case.host_pdos is None:
+            self.panes["PDOS"].children = [_note("this case has no PDOS")]
+            return
+        ctx, err = attempt(case_context, case, a.site)
+        view, err2 = (None, err) if err else attempt(PDOSExplorer, case, site=a.site, context=ctx)
+        self.pdos = view
+        self.panes["PDOS"].children = [view.widget] if view else [_note(err2, "error")]
+
+    def _levels_tab(self, case, a):
+        from .levels import LevelExplorer
+
+        fit, err, which = self.fit, None, None
+        if self.family_analysis is not None and self.fit is None:
+            fit = self._family_fit
+            err = getattr(self, "_fit_note", None)
+            fitted = self.family_analysis.fit_cases
+            which = case.name if case.name in fitted else None
+            if fit is not None and which is None:
+                err = f"{case.name} is not part of the shared fit (no in-gap state in the fitted charge state)"
+                fit = None
+        elif fit is None:
+            if a.site is None or a.state is None:
+                err = a.error or "no in-gap state to fit"
+            else:
+                fit, err = attempt(fit_case, case, a.site, a.state)
+        if fit is None:
+            self.levels = None
+            self.panes["Level explorer"].children = [_note(f"no model to explore: {err}")]
+            return
+        view, err = attempt(LevelExplorer, fit, a.site, which)
+        self.levels = view
+        self.panes["Level explorer"].children = [view.widget] if view else [_note(err, "error")]
+
+    def _ipython_display_(self):  # pragma: no cover - notebook only
+        from IPython.display import display
+
+        display(self.widget)
+
+
+def open_path(path) -> "App":
+    """Shortcut: an App on whatever ``path`` is."""
+    return App(load_any(path))

@@ -1,0 +1,95 @@
+"""Family board: sortable table + level-depth scatter; picking a case (a point,
+a table row or the dropdown) calls ``on_select(case_name)``."""
+
+from __future__ import annotations
+
+import ipywidgets as w
+
+from ..views._sources import named_sources
+from ..views.family import FAMILY_SOURCE, family_board, family_columns, numeric_keys, set_axes
+from ._common import bokeh_pane, message_html
+
+__all__ = ["FamilyBoard", "board_rows"]
+
+
+def board_rows(analysis) -> list[dict]:
+    """Rows for the board from a :class:`orbtool.family.FamilyAnalysis`
+    (its ``table()``), with ``name`` and ``above_vbm`` named as the views expect.
+    Text-only columns other than the labels are dropped."""
+    rows = []
+    for r in analysis.table():
+        row = {"name": r.get("case")}
+        for k, v in r.items():
+            if k in ("case", "error", "transition_levels"):
+                continue
+            row[k] = v
+        row["above_vbm"] = r.get("level_above_vbm")
+        rows.append(row)
+    return rows
+
+
+class FamilyBoard:
+    """Table and scatter of a family.
+
+    Parameters
+    ----------
+    rows : list of dict
+        One per case (see :func:`board_rows`); needs ``name``, ``above_vbm``;
+        ``motif`` and ``vacancy`` give colour and glyph.
+    on_select : callable(str), optional
+        Called with the case name when a case is picked.
+    errors : dict name → message, optional
+        Cases that could not be analysed (listed under the board).
+    """
+
+    def __init__(self, rows, on_select=None, errors=None):
+        self.on_select = on_select
+        self.cols = family_columns(rows)
+        axes = [k for k in numeric_keys(self.cols) if k != "above_vbm"] or ["above_vbm"]
+        self.x = w.Dropdown(options=axes, value=axes[0], description="x axis")
+        self.y = w.Dropdown(options=numeric_keys(self.cols), value="above_vbm" if "above_vbm" in self.cols
+                            else numeric_keys(self.cols)[0], description="y axis")
+        self.figure, self.table = family_board(self.cols, x=self.x.value, y=self.y.value)
+        self.pick = w.Dropdown(options=["(pick a case)"] + list(self.cols["name"]), description="case")
+        self.x.observe(self._axes, names="value")
+        self.y.observe(self._axes, names="value")
+        self.pick.observe(self._picked, names="value")
+        self.source = named_sources(self.figure, (FAMILY_SOURCE,))[FAMILY_SOURCE]
+        self.source.selected.on_change("indices", self._selected)
+        err = "\n".join(f"{k}: {v}" for k, v in (errors or {}).items())
+        self.errors = w.HTML(message_html("not analysed:\n" + err, "warn") if err else "")
+        from bokeh.layouts import column
+
+        self.widget = w.VBox([w.HBox([self.x, self.y, self.pick]), bokeh_pane(column(self.figure, self.table)),
+                              self.errors])
+
+    def _axes(self, change):
+        set_axes(self.figure, self.x.value, self.y.value)
+
+    def _selected(self, attr, old, new):
+        if new:
+            self.select(self.cols["name"][new[0]])
+
+    def _picked(self, change):
+        if change["new"] != "(pick a case)":
+            self.select(change["new"])
+
+    def select(self, name: str):
+        """Pick case ``name`` (as a click would)."""
+        if name not in self.cols["name"]:
+            raise KeyError(f"no case named {name!r}; cases are {self.cols['name']}")
+        if getattr(self, "current", None) == name:
+            return
+        self.current = name
+        i = self.cols["name"].index(name)
+        if list(self.source.selected.indices) != [i]:
+            self.source.selected.indices = [i]
+        if self.pick.value != name:
+            self.pick.value = name
+        if self.on_select is not None:
+            self.on_select(name)
+
+    def _ipython_display_(self):  # pragma: no cover - notebook only
+        from IPython.display import display
+
+        display(self.widget)

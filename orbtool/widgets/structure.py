@@ -1,0 +1,232 @@
+"""3-D view of the defect cell with nglview: shells, the empty site and the
+in-gap state as isosurfaces.
+
+Frames: nglview draws structures from PDB text, whose cell convention puts
+a₁ along x and a₂ in the xy plane; a cube file keeps its own axes. Both
+are therefore written in that *standard form* (``ase.cell.Cell.standard_form``),
+rotating positions, grid vectors, origin and the vacancy position by the
+same rotation, so the isosurface sits on the atoms for any cell.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+
+import ipywidgets as w
+import numpy as np
+
+from .. import style
+from ._common import message_html
+
+__all__ = ["StructureView", "EnclosedFraction", "standard_frame", "centre_on_site"]
+
+
+def _rgb(hexcode: str) -> list[float]:
+    return [int(hexcode[i:i + 2], 16) / 255 for i in (1, 3, 5)]
+
+
+def standard_frame(atoms):
+    """(rotated copy of ``atoms`` in standard cell form, rotation Q) with
+    new = old @ Q.T for any Cartesian vector."""
+    rcell, Q = atoms.cell.standard_form()
+    out = atoms.copy()
+    out.set_cell(rcell, scale_atoms=False)
+    out.positions = atoms.positions @ Q.T
+    return out, Q
+
+
+def centre_on_site(atoms, grid=None, site=None):
+    """Translate the cell content so the vacancy sits at the cell centre.
+
+    The grid is rolled by whole voxels and the atoms moved by exactly the
+    same vector (then wrapped), so the state stays on its atoms; with no
+    grid the move is not quantised. Returns (atoms, grid, site position), Å.
+    """
+    if site is None:
+        return atoms, grid, None
+    cell = np.asarray(grid.cell if grid is not None else atoms.cell[:], dtype=float)
+    pos = np.asarray(site.position, dtype=float)
+    frac = np.linalg.solve(cell.T, pos - (grid.origin if grid is not None else 0.0))
+    move = 0.5 - frac
+    if grid is not None:
+        steps = np.round(move * np.asarray(grid.shape)).astype(int)
+        move = steps / np.asarray(grid.shape)
+        grid = grid.with_values(np.roll(grid.values, tuple(steps), axis=(0, 1, 2)))
+    t = move @ cell
+    out = atoms.copy()
+    out.positions = out.positions + t
+    out.wrap()
+    return out, grid, pos + t
+
+
+class EnclosedFraction:
+    """Fraction of a state enclosed by an isosurface, O(log n) per query.
+
+    For a signed orbital (unit ``Å^-3/2``) the isosurface pair ±ψ₀ encloses
+    Σ_{|ψ|≥ψ₀} ψ² / Σ ψ²; for a density ρ the surface ρ₀ encloses
+    Σ_{ρ≥ρ₀} ρ / Σ ρ (negative density values are ignored). Both are
+    voxel sums, i.e. the grid's rectangle-rule integrals.
+    """
+
+    def __init__(self, grid):
+        v = np.asarray(grid.values, dtype=float).ravel()
+        self.signed = grid.unit == "Å^-3/2"
+        key = np.abs(v) if self.signed else np.clip(v, 0.0, None)
+        weight = v * v if self.signed else key
+        order = np.argsort(key)[::-1]
+        self._key = key[order]
+        total = weight.sum()
+        self._cum = np.cumsum(weight[order]) / (total if total > 0 else 1.0)
+
+    @property
+    def max_value(self) -> float:
+        return float(self._key[0])
+
+    def __call__(self, iso: float) -> float:
+        """Fraction (0–1) enclosed at isovalue ``iso`` (grid units)."""
+        n = int(np.searchsorted(-self._key, -float(iso), side="right"))
+        return 0.0 if n == 0 else float(self._cum[n - 1])
+
+    def isovalue_for(self, fraction: float) -> float:
+        """Isovalue enclosing (at least) ``fraction`` of the state."""
+        i = int(np.searchsorted(self._cum, fraction))
+        return float(self._key[min(i, self._key.size - 1)])
+
+
+class StructureView:
+    """nglview panel: cell around the vacancy, shells, ghost site, isosurfaces.
+
+    Parameters
+    ----------
+    atoms : ase.Atoms
+        The defect cell.
+    site : VacancySite-like, optional
+        ``position`` (Å), ``first_shell``/``second_shell`` (neighbours with ``index``).
+    grid : Grid, optional
+        The in-gap state (density or signed orbital) on the defect cell.
+    radius : float
+        Initial R (Å) of the "only atoms within R" toggle.
+    """
+
+    def __init__(self, atoms, site=None, grid=None, *, radius: float = 6.0):
+        import nglview as nv
+
+        self.atoms, self.site, self.grid = atoms, site, grid
+        shown, grid_shown, self.site_position = centre_on_site(atoms, grid, site)
+        self.std_atoms, self.Q = standard_frame(shown)
+        self.view = nv.NGLWidget()
+        self.view._set_size("520px", "440px")
+        self.view.add_component(nv.ASEStructure(self.std_atoms), default_representation=False)
+        self.only_near = w.Checkbox(value=False, description="only atoms within R of the site", indent=False)
+        self.radius = w.FloatSlider(value=radius, min=2.0, max=15.0, step=0.5, description="R (Å)",
+                                    layout=w.Layout(width="320px"))
+        self.only_near.disabled = self.radius.disabled = site is None
+        self.only_near.observe(self._draw_atoms, names="value")
+        self.radius.observe(self._draw_atoms, names="value")
+        self.status = w.HTML()
+        self._draw_atoms()
+        controls = [self.only_near, self.radius]
+        self.isovalue = None
+        if grid is not None:
+            self.fraction = EnclosedFraction(grid)
+            self._tmp = tempfile.mkdtemp(prefix="orbtool-view-")
+            path = self._write_cube(grid_shown)
+            self.view.add_component(path, default_representation=False)
+            # exponents on the slider's own grid, so the browser does not snap the value and echo it back
+            top = np.floor(np.log10(self.fraction.max_value) * 50) / 50
+            expo = top - 3 + np.round((np.log10(self.fraction.isovalue_for(0.6)) - top + 3) * 50) / 50
+            iso = float(10 ** min(expo, top))
+            self.isovalue = w.FloatLogSlider(value=iso, base=10, min=top - 3, max=top, step=0.02,
+                                             description=f"isovalue ({grid.unit})", readout_format=".2e",
+                                             style={"description_width": "120px"}, layout=w.Layout(width="420px"))
+            self.enclosed = w.HTML()
+            self._add_surfaces(iso)
+            self.isovalue.observe(self._on_iso, names="value")
+            self._show_fraction(iso)
+            controls += [self.isovalue, self.enclosed]
+        if site is not None:
+            # shapes are nglview components too: add the ghost after the cube so the cube stays component 1
+            pos = self.site_position @ self.Q.T
+            self.view.shape.add_sphere(pos.tolist(), _rgb(style.VACANCY_GHOST), 0.7, "vacant site")
+        self.view.center()
+        controls.append(self.status)
+        legend = (f'<small><span style="color:{style.SHELL_COLOURS[1]}">●</span> shell 1 '
+                  f'<span style="color:{style.SHELL_COLOURS[2]}">●</span> shell 2 '
+                  f'<span style="color:{style.VACANCY_GHOST}">●</span> vacant site '
+                  f'<span style="color:{style.LOBE_POSITIVE}">■</span> ψ&gt;0 '
+                  f'<span style="color:{style.LOBE_NEGATIVE}">■</span> ψ&lt;0</small>')
+        self.widget = w.HBox([self.view, w.VBox(controls + [w.HTML(legend)])])
+
+    # --------------------------------------------------------------- atoms
+    def _shell(self, k):
+        shells = getattr(self.site, "shells", None) or ()
+        return [int(n.index) for n in shells[k - 1]] if len(shells) >= k else []
+
+    def _near(self):
+        from ase.geometry import get_distances
+
+        _, d = get_distances(self.atoms.positions, np.asarray(self.site.position)[None], cell=self.atoms.cell,
+                             pbc=self.atoms.pbc)
+        return [int(i) for i in np.flatnonzero(d[:, 0] <= self.radius.value)]
+
+    def _draw_atoms(self, change=None):
+        v = self.view
+        if change is not None:  # on first draw the component may still be loading in the browser
+            v.clear_representations(component=0)
+        keep = self._near() if (self.only_near.value and self.site is not None) else list(range(len(self.atoms)))
+        s1, s2 = set(self._shell(1)), set(self._shell(2))
+        rest = [i for i in keep if i not in s1 and i not in s2]
+
+        def sel(ix):
+            return "@" + ",".join(map(str, ix)) if ix else "none"
+
+        v.add_representation("ball+stick", selection=sel(rest), color=style.SHELL_COLOURS["rest"], radius=0.12,
+                             component=0)
+        for ix, colour in ((sorted(s1 & set(keep)), style.SHELL_COLOURS[1]), (sorted(s2 & set(keep)),
+                                                                              style.SHELL_COLOURS[2])):
+            if ix:
+                v.add_representation("ball+stick", selection=sel(ix), color=colour, radius=0.22, component=0)
+        v.add_representation("unitcell", component=0, color=style.MUTED)
+        self.status.value = message_html(f"{len(keep)} of {len(self.atoms)} atoms shown", "info")
+
+    # ---------------------------------------------------------- isosurface
+    def _write_cube(self, grid) -> str:
+        from ase import Atoms
+        from ase.io.cube import write_cube
+
+        cell = np.asarray(grid.cell) @ self.Q.T
+        origin = np.asarray(grid.origin) @ self.Q.T
+        holder = Atoms(self.std_atoms.get_chemical_symbols(), positions=self.std_atoms.positions, cell=cell,
+                       pbc=True)
+        path = os.path.join(self._tmp, "state.cube")
+        with open(path, "w") as fh:
+            write_cube(fh, holder, data=np.asarray(grid.values, dtype=float), origin=origin)
+        return path
+
+    def _add_surfaces(self, iso):
+        v = self.view
+        v.add_representation("surface", component=1, isolevelType="value", isolevel=float(iso),
+                             color=style.LOBE_POSITIVE, opacity=0.6)
+        if self.fraction.signed:
+            v.add_representation("surface", component=1, isolevelType="value", isolevel=float(iso),
+                                 negateIsolevel=True, color=style.LOBE_NEGATIVE, opacity=0.6)
+
+    def _on_iso(self, change):
+        iso = float(change["new"])
+        old = float(change["old"])
+        if old > 0 and abs(np.log10(iso / old)) < 0.005:  # a rounding echo from the browser, not a move
+            return
+        self.view.update_representation(component=1, repr_index=0, isolevel=iso)
+        if self.fraction.signed:
+            self.view.update_representation(component=1, repr_index=1, isolevel=iso)
+        self._show_fraction(iso)
+
+    def _show_fraction(self, iso):
+        self.enclosed.value = (f'<span class="orbtool-enclosed">fraction of the state enclosed: '
+                               f'<b>{100 * self.fraction(iso):.1f} %</b></span>')
+
+    def _ipython_display_(self):  # pragma: no cover - notebook only
+        from IPython.display import display
+
+        display(self.widget)
