@@ -355,6 +355,11 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
     ls = proj.orbital_ls()
     first = _shell_indices(site, 1) if has_shells else []
     second = _shell_indices(site, 2) if has_shells else []
+    if any(i < 0 or i >= proj.natoms for i in first + second):
+        top = max(first + second)
+        raise InputFormatError(proj.source, None, f"the site's neighbour indices (up to {top}) do not fit the "
+                               f"{proj.natoms} atoms of the projections: site and projections belong to different "
+                               "structures", field="site")
     out = []
     for s, b in zip(*np.nonzero(inside)):
         s, b = int(s), int(b)
