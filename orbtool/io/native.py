@@ -123,11 +123,35 @@ def write_npz(path, obj) -> Path:
     return path
 
 
+def _check_npy_sizes(path) -> None:
+    """Refuse archive members whose ``.npy`` header declares more data than the member (or the whole
+    archive, allowing deflate's largest expansion) can hold, before numpy allocates the array."""
+    import math
+    import os
+    limit = os.stat(path).st_size * 1500
+    with zipfile.ZipFile(path) as z:
+        for info in z.infolist():
+            if not info.filename.endswith(".npy"):
+                continue
+            with z.open(info) as fh:
+                version = np.lib.format.read_magic(fh)
+                read = np.lib.format.read_array_header_1_0 if version == (1, 0) else \
+                    np.lib.format.read_array_header_2_0
+                shape, _, dtype = read(fh)
+            need = math.prod(int(n) for n in shape) * dtype.itemsize
+            if need > min(info.file_size, limit):
+                raise InputFormatError(path, None, f"NPZ entry {info.filename!r} declares shape {shape} "
+                                       f"({need:,d} bytes) but holds {info.file_size:,d} bytes", field=info.filename)
+
+
 def read_npz(path, kind: str | None = None):
     """Read an orbtool NPZ file; ``kind`` (``"grid"``, ``"pdos"``, ``"projections"``) is checked if given."""
     try:
+        _check_npy_sizes(path)
         with np.load(path, allow_pickle=False) as npz:
             data = {k: npz[k] for k in npz.files}
+    except InputFormatError:
+        raise
     except (OSError, ValueError, zipfile.BadZipFile, EOFError, KeyError) as exc:
         raise InputFormatError(path, None, f"not a readable NPZ archive ({exc})") from None
     if "orbtool_kind" not in data:
