@@ -108,7 +108,7 @@ def read_doscar(path, atoms=None) -> ProjectedDOS:
     if atoms is not None and len(atoms) != nions:
         raise InputFormatError(path, 1, f"DOSCAR has {nions} ions but the structure has {len(atoms)} atoms",
                                field="ion count")
-    symbols = atoms.get_chemical_symbols() if atoms is not None else ["X"] * nions
+    symbols = atoms.get_chemical_symbols() if atoms is not None else None
     channels, values = [], []
     pos = 6 + nedos
     rest = [ln for ln in lines[pos:] if ln.strip()]
@@ -138,7 +138,7 @@ def read_doscar(path, atoms=None) -> ProjectedDOS:
             cols = block[:, 1:].reshape(nedos, len(names), comp * ns)
             for o, name in enumerate(names):
                 for s in range(ns):
-                    channels.append((a, symbols[a], name, s))
+                    channels.append((a, symbols[a] if symbols else "X", name, s))
                     values.append(cols[:, o, s * comp if comp == 4 else s])
             pos += 1 + nedos
         while pos < len(lines) and not lines[pos].strip():
