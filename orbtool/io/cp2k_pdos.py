@@ -105,9 +105,12 @@ def read_cp2k_pdos(path, sigma: float = 0.1, step: float = 0.01) -> ProjectedDOS
     for spin, f, kind, fermi, orbs, data in parts:
         fermis.append(fermi)
         e = data[:, 1] * HARTREE
-        gauss = np.exp(-0.5 * ((grid[None, :] - e[:, None]) / sigma) ** 2) / (sigma * np.sqrt(2 * np.pi))
         w = data[:, 3:] * per_state
-        dos = w.T @ gauss  # (norb, nE)
+        dos = np.zeros((w.shape[1], n))
+        rows = max(1, 4_000_000 // n)  # states per block: the Gaussian block stays below ~32 MB
+        for k in range(0, e.size, rows):
+            gauss = np.exp(-0.5 * ((grid[None, :] - e[k:k + rows, None]) / sigma) ** 2) / (sigma * np.sqrt(2 * np.pi))
+            dos += w[k:k + rows].T @ gauss  # (norb, nE)
         for j, orb in enumerate(orbs):
             channels.append((-1, _element(kind), orb, spin))
             values.append(dos[j])
