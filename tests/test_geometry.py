@@ -1,0 +1,219 @@
+"""Vacancy locator, neighbour shells and edits against standard crystal geometry.
+
+External references
+-------------------
+* Crystals from ASE's bulk builders (``ase.build.bulk``), a general-purpose
+  reference library; neighbour counts and distances of the standard structures
+  from C. Kittel, *Introduction to Solid State Physics* (8th ed., Wiley 2005),
+  ch. 1, Table 2 and the NaCl / ZnS / diamond / hcp structure descriptions
+  [table location from memory]: sc/bcc/fcc first neighbours 6 at a, 8 at a√3/2,
+  12 at a/√2; rocksalt 6 unlike neighbours at a/2; zinc blende and diamond 4 at
+  a√3/4; wurtzite 4 (site symmetry C3v, space group P6₃mc).
+* Site symmetries: Oh for rocksalt and bcc sites, Td for zinc blende and diamond,
+  C3v for wurtzite, D3h for hcp (International Tables for Crystallography Vol. A,
+  Wyckoff positions of Fm-3m 4a, Im-3m 2a, F-43m 4a, Fd-3m 8a, P6₃mc 2b,
+  P6₃/mmc 2c [from memory]).
+* Neighbour lists and minimum images compared with ``ase.neighborlist.neighbor_list``
+  and ``ase.geometry.find_mic``.
+"""
+
+import numpy as np
+import pytest
+from ase import Atoms
+from ase.build import bulk
+from ase.geometry import find_mic
+from ase.neighborlist import neighbor_list
+
+from orbtool.analysis.geometry import cluster_shells, locate_vacancy
+from orbtool.analysis.periodic import minimum_image, site_neighbours
+from orbtool.errors import GeometryError
+
+
+def _remove(host, index):
+    d = host.copy()
+    del d[index]
+    return d
+
+
+# --------------------------------------------------------------- crystal tables
+A_MGO, A_GAAS, A_FE = 4.21, 5.65, 2.87
+
+
+@pytest.mark.parametrize("name, host, removed, n1, d1, group", [
+    # rocksalt anion vacancy: 6 cations at a/2, Oh (Kittel ch. 1, NaCl structure)
+    ("rocksalt", bulk("MgO", "rocksalt", a=A_MGO, cubic=True).repeat(2), 1, 6, A_MGO / 2, "Oh"),
+    # zinc blende anion vacancy: 4 cations at a√3/4, Td (Kittel ch. 1, ZnS structure)
+    ("zincblende", bulk("GaAs", "zincblende", a=A_GAAS, cubic=True).repeat(2), 1, 4, A_GAAS * np.sqrt(3) / 4, "Td"),
+    # bcc: 8 at a√3/2, Oh (Kittel ch. 1, Table 2)
+    ("bcc", bulk("Fe", "bcc", a=A_FE, cubic=True).repeat(3), 0, 8, A_FE * np.sqrt(3) / 2, "Oh"),
+    # fcc: 12 at a/√2, Oh (Kittel ch. 1, Table 2)
+    ("fcc", bulk("Cu", "fcc", a=3.61, cubic=True).repeat(2), 0, 12, 3.61 / np.sqrt(2), "Oh"),
+])
+def test_standard_crystals(name, host, removed, n1, d1, group):
+    site = locate_vacancy(host, _remove(host, removed))
+    assert site.host_index == removed
+    assert site.element == host.get_chemical_symbols()[removed]
+    assert len(site.first_shell) == n1
+    assert [nb.host_distance for nb in site.first_shell] == pytest.approx([d1] * n1, abs=1e-6)
+    assert site.point_group == group and site.host_point_group == group
+    assert np.allclose(site.position, host.positions[removed])
+    # Oh has 48 operations, Td 24 (F. A. Cotton, Chemical Applications of Group Theory, character tables)
+    assert len(site.operations) == {"Oh": 48, "Td": 24}[group]
+    for r in site.operations:
+        assert np.allclose(r @ r.T, np.eye(3), atol=1e-8)
+
+
+def test_second_shells_zincblende_and_rocksalt():
+    # zinc blende: 12 like atoms at a/√2 second; rocksalt: 12 like atoms at a/√2 (Kittel ch. 1)
+    for host, el in ((bulk("GaAs", "zincblende", a=A_GAAS, cubic=True).repeat(2), "As"),
+                     (bulk("MgO", "rocksalt", a=A_MGO, cubic=True).repeat(2), "O")):
+        site = locate_vacancy(host, _remove(host, 1))
+        a = host.cell[0, 0] / 2
+        assert len(site.second_shell) == 12
+        assert {nb.element for nb in site.second_shell} == {el}
+        assert [nb.host_distance for nb in site.second_shell] == pytest.approx([a / np.sqrt(2)] * 12, abs=1e-6)
+
+
+def test_wurtzite_c3v_and_hcp_d3h():
+    # wurtzite: 4 neighbours, site symmetry C3v (P6₃mc, Wyckoff 2b) although the tetrahedron is almost regular
+    host = bulk("ZnO", "wurtzite", a=3.25, c=5.21).repeat((3, 3, 2))
+    site = locate_vacancy(host, _remove(host, 1))
+    assert len(site.first_shell) == 4 and {nb.element for nb in site.first_shell} == {"Zn"}
+    assert site.point_group == "C3v" and len(site.operations) == 6
+    # hcp metal: 12 neighbours (near-ideal c/a), site symmetry D3h (P6₃/mmc, Wyckoff 2c)
+    host = bulk("Mg", "hcp", a=3.21, c=5.21).repeat((3, 3, 2))
+    site = locate_vacancy(host, _remove(host, 0))
+    assert len(site.first_shell) == 12 and site.point_group == "D3h"
+
+
+def test_operations_map_first_shell_onto_itself():
+    host = bulk("GaAs", "zincblende", a=A_GAAS, cubic=True).repeat(2)
+    site = locate_vacancy(host, _remove(host, 1))
+    v = np.array([nb.vector for nb in site.first_shell])
+    for r, p in zip(site.operations, site.permutations):
+        assert np.allclose(v @ r.T, v[p], atol=1e-6)
+
+
+# --------------------------------------------------------- periodic primitives
+def _random_cell(rng):
+    cell = np.eye(3) * rng.uniform(3.0, 6.0) + rng.normal(scale=1.2, size=(3, 3))
+    if np.linalg.det(cell) < 0:
+        cell[0] *= -1
+    return cell
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_site_neighbours_match_ase_neighborlist(seed):
+    # reference: ase.neighborlist.neighbor_list (same S convention: D = x_j + S·cell − x_i)
+    rng = np.random.default_rng(seed)
+    cell = _random_cell(rng)
+    pbc = [True, True, bool(seed % 2)]
+    pos = rng.random((9, 3)) @ cell
+    atoms = Atoms("H9", positions=pos, cell=cell, pbc=pbc)
+    cutoff = 3.5
+    i, j, dist, vec, shift = neighbor_list("ijdDS", atoms, cutoff)
+    for a in range(len(atoms)):
+        idx, sh, v, d = site_neighbours(cell, pos, pbc, pos[a], cutoff)
+        sel = i == a
+        ref = sorted(zip(j[sel].tolist(), map(tuple, shift[sel].tolist())))
+        got = sorted(zip(idx.tolist(), map(tuple, sh.tolist())))
+        assert got == ref
+        assert np.sort(d) == pytest.approx(np.sort(dist[sel]), abs=1e-9)
+        assert np.allclose(pos[idx] + sh @ cell - pos[a], v)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_minimum_image_matches_ase_find_mic(seed):
+    rng = np.random.default_rng(100 + seed)
+    cell = _random_cell(rng)
+    vec = rng.normal(scale=8.0, size=(50, 3))
+    mic, shifts = minimum_image(cell, vec, True)
+    ref, ref_len = find_mic(vec, cell, True)
+    assert np.linalg.norm(mic, axis=1) == pytest.approx(ref_len, abs=1e-9)
+    assert np.allclose(vec + shifts @ cell, mic)
+
+
+def test_cluster_shells_gap_rule():
+    # common practice: a new shell where sorted distances jump by more than the tolerance
+    assert cluster_shells([2.35, 3.84, 2.36, 4.50, 3.85], gap=0.2).tolist() == [1, 2, 1, 3, 2]
+
+
+# ------------------------------------------------------------ relaxed structures
+def test_breathing_and_radial_displacements_are_recovered():
+    # construct a 4 % inward breathing relaxation: radial displacement must be −0.04·d (geometry)
+    host = bulk("Si", "diamond", a=5.43, cubic=True).repeat(2)
+    defect = _remove(host, 0)
+    site0 = locate_vacancy(host, defect)
+    relaxed = site0.breathe(-0.04)
+    site = locate_vacancy(host, relaxed)
+    d = 5.43 * np.sqrt(3) / 4
+    for nb in site.first_shell:
+        assert nb.radial_displacement == pytest.approx(-0.04 * d, abs=1e-9)
+        assert nb.tangential_displacement == pytest.approx(0.0, abs=1e-9)
+        assert nb.distance == pytest.approx(0.96 * d, abs=1e-9)
+    desc = site.descriptors()
+    assert desc["breathing_fraction"] == pytest.approx(-0.04, abs=1e-9)
+    assert desc["pair_distance_mean"] == pytest.approx(0.96 * d * np.sqrt(8 / 3), abs=1e-9)  # tetrahedron edge
+    assert desc["angle_mean"] == pytest.approx(np.degrees(np.arccos(-1 / 3)), abs=1e-6)  # 109.47°
+    assert desc["distortion_total"] == pytest.approx(0.0, abs=1e-9)
+    assert site.point_group == "Td"
+
+
+def test_tetragonal_pairing_lowers_td_to_d2d():
+    # an E (tetragonal pairing) distortion of a Td vacancy gives D2d; a T2 one gives C3v or C2v or lower
+    # (G. D. Watkins' vacancy distortions, e.g. M. Lannoo & J. Bourgoin, Point Defects in Semiconductors I,
+    # Springer 1981, ch. 4 [from memory])
+    host = bulk("Si", "diamond", a=5.43, cubic=True).repeat(2)
+    site = locate_vacancy(host, _remove(host, 0))
+    modes = site.distortion_modes()
+    assert {"breathing", "E.1", "E.2", "T2.1", "T2.2", "T2.3"} == set(modes)
+    dist = locate_vacancy(host, site.distort("E.1", 0.3), symprec=0.02)
+    assert dist.point_group == "D2d"
+    desc = dist.descriptors()
+    assert desc["distortion_E"] == pytest.approx(0.3, abs=1e-6)
+    assert desc["distortion_T2"] == pytest.approx(0.0, abs=1e-6)
+    assert desc["pair_distance_spread"] > 0.05
+    t2 = locate_vacancy(host, site.distort("T2.1", 0.3), symprec=0.02)
+    assert t2.point_group in {"C3v", "C2v", "D2d", "Cs", "C1", "S4", "C2"} and t2.point_group != "Td"
+    assert t2.descriptors()["distortion_T2"] == pytest.approx(0.3, abs=1e-6)
+
+
+def test_mode_patterns_are_orthonormal():
+    host = bulk("MgO", "rocksalt", a=A_MGO, cubic=True).repeat(2)
+    site = locate_vacancy(host, _remove(host, 1))
+    modes = site.distortion_modes()
+    m = np.array([v.ravel() for v in modes.values()])
+    assert np.allclose(m @ m.T, np.eye(len(m)), atol=1e-8)
+    # empty octahedron (6 atoms): internal modes A1g + Eg + T1u + T2g + T2u, as for an octahedral XY6
+    # molecule without its centre (K. Nakamoto, Infrared and Raman Spectra of Inorganic and Coordination
+    # Compounds, octahedral XY6 table, minus the central atom's T1u [from memory])
+    labels = sorted({k.split(".")[0] for k in modes})
+    assert labels == ["Eg", "T1u", "T2g", "T2u", "breathing"]
+
+
+# -------------------------------------------------------------------- edits
+def test_edits_return_new_atoms_and_leave_inputs_untouched():
+    host = bulk("GaAs", "zincblende", a=A_GAAS, cubic=True).repeat(2)
+    defect = _remove(host, 1)
+    before_h, before_d = host.positions.copy(), defect.positions.copy()
+    site = locate_vacancy(host, defect)
+    out = site.breathe(-0.05)
+    assert out is not defect
+    assert np.array_equal(host.positions, before_h) and np.array_equal(defect.positions, before_d)
+    moved = [nb.index for nb in site.first_shell]
+    d = np.linalg.norm(find_mic(out.positions[moved] - site.position, out.cell, True)[0], axis=1)
+    assert d == pytest.approx([0.95 * A_GAAS * np.sqrt(3) / 4] * 4, abs=1e-9)
+    others = np.setdiff1d(np.arange(len(defect)), moved)
+    assert np.array_equal(out.positions[others], defect.positions[others])
+    sc = site.scale_shell(1.1, shell=2)
+    d2 = np.linalg.norm(find_mic(sc.positions[[nb.index for nb in site.second_shell]] - site.position,
+                                 sc.cell, True)[0], axis=1)
+    assert d2 == pytest.approx([1.1 * A_GAAS / np.sqrt(2)] * 12, abs=1e-9)
+    sw = site.swap_element("Ga", "In", shell=1)
+    assert [sw.get_chemical_symbols()[i] for i in moved] == ["In"] * 4
+    assert sw.get_chemical_symbols().count("In") == 4 and defect.get_chemical_symbols().count("In") == 0
+    assert site.swap_element("Ga", "Al").get_chemical_symbols().count("Al") == 32
+    with pytest.raises(GeometryError, match="no Zn"):
+        site.swap_element("Zn", "Cd")
+    with pytest.raises(GeometryError, match="unknown distortion mode"):
+        site.distort("Q7", 0.1)
