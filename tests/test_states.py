@@ -115,6 +115,9 @@ def test_midgap_state_of_the_broken_chain(case):
     assert st.shell_fractions[2] == pytest.approx(0.0, abs=1e-10)
     assert st.orbital_weights == pytest.approx({"s": 1.0, "p": 0.0, "d": 0.0})
     assert "In-gap state" in st.summary()
+    record = st.to_dict()                    # what sessions and family tables store
+    assert record["edges"]["gap"] == pytest.approx(2 * abs(T2 - T1))
+    assert record["shell_fractions"][1] == st.shell_fractions[1]
 
 
 def test_pdos_edges_with_stated_threshold(case):

@@ -21,13 +21,14 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import GeometryError, InputFormatError, OrbtoolError
+from ._records import Record
 from .density import site_position
 
 __all__ = ["Alignment", "align", "resolve_site", "far_atoms", "host_indices"]
 
 
 @dataclass(frozen=True, eq=False)
-class Alignment:
+class Alignment(Record):
     """Offset between the defect cell's and the host's energy scales.
 
     Attributes

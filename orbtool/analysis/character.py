@@ -16,13 +16,14 @@ import numpy as np
 
 from ..errors import InputFormatError
 from ..grid import Grid
+from ._records import Record
 from .density import Partition, partition
 
 __all__ = ["RouteComparison", "compare_routes"]
 
 
 @dataclass(frozen=True, eq=False)
-class RouteComparison:
+class RouteComparison(Record):
     """Per-atom weights of one state from projections and from a grid.
 
     Attributes

@@ -27,6 +27,7 @@ import numpy as np
 from ..errors import GeometryError, InputFormatError
 from ..grid import Grid
 from ._partition import nearest_atom_sums, sphere_sums
+from ._records import Record
 
 __all__ = ["Partition", "Localisation", "partition", "partition_spheres", "partition_voronoi", "localisation",
            "site_position"]
@@ -36,7 +37,7 @@ CELL_TOLERANCE = 1e-3
 
 
 @dataclass(frozen=True, eq=False)
-class Partition:
+class Partition(Record):
     """The integral of a grid field split among atoms.
 
     Attributes
@@ -96,7 +97,7 @@ class Partition:
 
 
 @dataclass(frozen=True, eq=False)
-class Localisation:
+class Localisation(Record):
     """How compact a state is about a site.
 
     Attributes

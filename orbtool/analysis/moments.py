@@ -22,6 +22,7 @@ import numpy as np
 
 from ..errors import InputFormatError, OrbtoolError
 from ..spectra import ProjectedDOS
+from ._records import Record
 from .recursion import Recursion, recursion_coefficients
 
 __all__ = ["Moments", "dos_moments", "channel_moments", "pdos_moments", "MomentRow", "MomentComparison",
@@ -31,7 +32,7 @@ _L_NAMES = "spdf"
 
 
 @dataclass(frozen=True, eq=False)
-class Moments:
+class Moments(Record):
     """Moments of one DOS curve over an energy window.
 
     Attributes
@@ -146,7 +147,7 @@ def channel_moments(pdos: ProjectedDOS, window=None, *, shift: float = 0.0, **cr
 
 
 @dataclass(frozen=True, eq=False)
-class MomentRow:
+class MomentRow(Record):
     """One channel of one neighbour, in the host and in the defect cell."""
 
     atom: int

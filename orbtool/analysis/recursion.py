@@ -31,12 +31,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputFormatError
+from ._records import Record
 
 __all__ = ["Recursion", "recursion_coefficients"]
 
 
 @dataclass(frozen=True, eq=False)
-class Recursion:
+class Recursion(Record):
     """Continued-fraction coefficients of one LDOS.
 
     Attributes

@@ -16,6 +16,7 @@ import numpy as np
 
 from ..errors import InputFormatError, OrbtoolError
 from ..spectra import BandProjections, ProjectedDOS
+from ._records import Record
 from .alignment import Alignment, align, resolve_site
 
 __all__ = ["NoGapError", "BandEdges", "band_edges", "DefectState", "in_gap_states", "Alignment", "align"]
@@ -29,7 +30,7 @@ class NoGapError(OrbtoolError, ValueError):
 
 
 @dataclass(frozen=True, eq=False)
-class BandEdges:
+class BandEdges(Record):
     """Valence-band maximum, conduction-band minimum and gap.
 
     Attributes
@@ -193,7 +194,7 @@ def band_edges(data, *, threshold: float | None = None, fermi: float | None = No
 
 # ---------------------------------------------------------------- in-gap states
 @dataclass(frozen=True, eq=False)
-class DefectState:
+class DefectState(Record):
     """One band of the defect cell inside the host gap.
 
     Attributes
