@@ -189,7 +189,8 @@ def _assign(frame, q, zd, zh, tolerance, forbid, species_penalty):
     j1 = idx[rows, order[:, 0]]
     finite = np.isfinite(e1)
     claims = np.bincount(j1[finite], minlength=len(zh))
-    clear = finite & (e1 < tolerance) & (e2 - e1 > 0.3) & (claims[j1] == 1)
+    with np.errstate(invalid="ignore"):  # inf - inf where an atom has no candidate at all
+        clear = finite & (e1 < tolerance) & (e2 - e1 > 0.3) & (claims[j1] == 1)
     mapping = np.full(n, -1, dtype=int)
     mapping[clear] = j1[clear]
     amb = np.flatnonzero(~clear)

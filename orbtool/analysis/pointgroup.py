@@ -216,14 +216,22 @@ def _search(pts, labels, tol):
 
 def _match_many(points, labels, rots, tol):
     """Batched :func:`_match`: permutations (K, n) and a mask of the rotations that map the set onto itself."""
-    images = np.einsum("kij,nj->kni", rots, points)
-    d = np.linalg.norm(images[:, :, None, :] - points[None, None, :, :], axis=3)
-    d[:, labels[:, None] != labels[None, :]] = np.inf
-    p = np.argmin(d, axis=2)
-    best = np.take_along_axis(d, p[:, :, None], axis=2)[:, :, 0]
-    srt = np.sort(p, axis=1)
-    distinct = np.all(np.diff(srt, axis=1) > 0, axis=1) if p.shape[1] > 1 else np.ones(len(p), bool)
-    return p, (best.max(axis=1) <= tol) & distinct
+    n = len(points)
+    chunk = max(1, 400_000 // max(1, n * n))
+    perms, oks = [], []
+    for start in range(0, len(rots), chunk):
+        images = np.einsum("kij,nj->kni", rots[start:start + chunk], points)
+        d = np.linalg.norm(images[:, :, None, :] - points[None, None, :, :], axis=3)
+        d[:, labels[:, None] != labels[None, :]] = np.inf
+        p = np.argmin(d, axis=2)
+        best = np.take_along_axis(d, p[:, :, None], axis=2)[:, :, 0]
+        srt = np.sort(p, axis=1)
+        distinct = np.all(np.diff(srt, axis=1) > 0, axis=1) if n > 1 else np.ones(len(p), bool)
+        perms.append(p)
+        oks.append((best.max(axis=1) <= tol) & distinct)
+    if not perms:
+        return np.zeros((0, n), int), np.zeros(0, bool)
+    return np.concatenate(perms), np.concatenate(oks)
 
 
 def _symmetrize(pts, ops, perms, rounds: int = 4):
