@@ -116,6 +116,9 @@ def test_semi_infinite_chain_semicircle(method):
     # the fraction closed by the constant-tail terminator rebuilds the semicircle
     inner = slice(200, -200)
     assert np.allclose(rec.ldos(e[inner]), d[inner], atol=1e-3 * d.max())
+    assert rec.rebuild_error(e[inner], d[inner])["relative"] < 1e-3
+    # without a terminator and with a finite broadening the fraction is only a sum of 12 poles
+    assert rec.rebuild_error(e[inner], d[inner], broadening=0.05, terminator="none")["relative"] > 1e-2
     assert "a_n" in rec.summary()
 
 

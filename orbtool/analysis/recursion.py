@@ -107,6 +107,23 @@ class Recursion(Record):
         eta = max(float(broadening), 1e-12)
         return -self.greens(e + 1j * eta, terminator=terminator).imag / np.pi
 
+    def rebuild_error(self, energies, dos, broadening: float = 0.0, terminator: str = "sqrt") -> dict:
+        """How well the fraction rebuilds a sampled LDOS over this window.
+
+        Returns ``{"max": max |Δn|, "rms": rms Δn, "relative": max |Δn| / max n}``
+        (states/eV except the last) on the energies inside :attr:`window`.
+        """
+        e = np.asarray(energies, dtype=float)
+        d = np.asarray(dos, dtype=float)
+        m = (e >= self.window[0]) & (e <= self.window[1])
+        if m.sum() < 1 or d.shape != e.shape:
+            raise InputFormatError(None, None, "energies and dos must be equal arrays overlapping the window",
+                                   field="dos")
+        diff = self.ldos(e[m], broadening, terminator) - d[m]
+        top = float(np.abs(d[m]).max())
+        return {"max": float(np.abs(diff).max()), "rms": float(np.sqrt(np.mean(diff**2))),
+                "relative": float(np.abs(diff).max() / top) if top > 0 else float("nan")}
+
     def summary(self) -> str:
         lines = [f"Recursion coefficients ({self.method}), window {self.window[0]:.3f} … {self.window[1]:.3f} eV,"
                  f" weight {self.weight:.5g} states",
