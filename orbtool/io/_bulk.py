@@ -68,7 +68,13 @@ class _Layout:
         ext[_PAD:_PAD + stop] = buf[:stop]
         ext[_PAD + stop:] = 32
         words = np.ndarray(shape=(ext.size - 7,), dtype="<u8", buffer=ext, strides=(1,))
-        d = dots + _PAD
+
+        def word(k):  # the 8 bytes starting k bytes after each dot
+            return words[_PAD + k:][dots]
+
+        def byte(k, where=dots):  # the byte k bytes after each dot
+            return ext[_PAD + k:][where]
+
         if a == 1:
             # the usual case ('%e', Fortran E): the integer digit and the dot share a word with
             # up to six fraction digits; the dot is read as a '0' and corrected for
@@ -76,51 +82,59 @@ class _Layout:
             r = b - lo_n  # fraction digits in the word holding the dot
             if r > 6:
                 return None
-            w = words[d + (r - 7)]
-            dot_byte = np.uint64(0xFF << (8 * (7 - r)))
-            w = (w & ~dot_byte) | (np.uint64(0x30 << (8 * (7 - r))))
+            w = word(r - 7)
+            w &= np.uint64(~(0xFF << (8 * (7 - r))) & 0xFFFFFFFFFFFFFFFF)
+            w |= np.uint64(0x30 << (8 * (7 - r)))
             v, ok = _digit_word(w, r + 2)
             idig = (w >> np.uint64(8 * (6 - r))) & _BYTE
             mant = v - (idig - np.uint64(48)) * np.uint64(9 * 10 ** r)
             if lo_n:
-                lo, ok_lo = _digit_word(words[d + (b - 7)], lo_n)
+                lo, ok_lo = _digit_word(word(b - 7), lo_n)
                 mant = mant * np.uint64(10 ** lo_n) + lo
                 ok &= ok_lo
         else:
             if b <= 8:
-                frac, ok = _digit_word(words[d + (1 + b - 8)], b)
+                frac, ok = _digit_word(word(1 + b - 8), b)
             else:
-                lo, ok = _digit_word(words[d + (1 + b - 8)], 8)
-                hi, ok_hi = _digit_word(words[d + (1 + b - 16)], b - 8)
+                lo, ok = _digit_word(word(1 + b - 8), 8)
+                hi, ok_hi = _digit_word(word(1 + b - 16), b - 8)
                 frac = hi * np.uint64(100_000_000) + lo
                 ok &= ok_hi
-            ipart, ok_i = _digit_word(words[d - 8], a)
+            ipart, ok_i = _digit_word(word(-8), a)
             ok &= ok_i
             mant = ipart * np.uint64(10 ** b) + frac
-        pw = words[d - (a + 2)]
-        pp, p = pw & _BYTE, (pw >> np.uint64(8)) & _BYTE
-        sign = (p == 45) | (p == 43)
-        ok &= np.where(sign, pp, p) <= 32
-        if self.echar:
-            xw = words[d + (b + 1)]
-            ec = (xw & _BYTE) | np.uint64(0x20)
-            es = (xw >> np.uint64(8)) & _BYTE
-            e, ok_e = _digit_word(xw << np.uint64(8 * (6 - c)), c)  # the c exponent digits, moved to the top
-            post = (xw >> np.uint64(16 + 8 * c)) & _BYTE
-            ok &= ok_e & ((ec == 101) | (ec == 100)) & ((es == 45) | (es == 43)) & (post <= 32)
-            e = e.astype(np.int64)
-            scale = np.where(es == 45, -e, e) - b
-        else:
-            ok &= ext[d + (b + 1)] <= 32
-            scale = np.full(dots.size, -b, dtype=np.int64)
         if not ok.all():
             return None
+        p = byte(-a - 1)  # sign or separator before the number
+        sign = (p == 45) | (p == 43)
         nsign = int(np.count_nonzero(sign))
+        if not np.all((p <= 32) | sign):
+            return None
+        if nsign and byte(-a - 2, dots[sign]).max() > 32:
+            return None
+        if self.echar:
+            ec = byte(b + 1) | np.uint8(0x20)
+            es = byte(b + 2)
+            if not (np.all((ec == 101) | (ec == 100)) and np.all((es == 45) | (es == 43))):
+                return None
+            e = np.zeros(dots.size, dtype=np.int16)
+            for k in range(c):
+                dk = byte(b + 3 + k) - np.uint8(48)
+                if dk.max() > 9:
+                    return None
+                e = e * 10 + dk
+            if byte(b + 3 + c).max() > 32:
+                return None
+            scale = np.where(es == 45, -e, e) - b
+        else:
+            if byte(b + 1).max() > 32:
+                return None
+            scale = np.full(dots.size, -b, dtype=np.int16)
         if np.count_nonzero(buf[:stop] > 32) != dots.size * self.length + nsign:
             return None  # something other than these tokens and whitespace is in the block
         # mantissa (exact integer) times a correctly rounded power of ten: within 1.5 ulp
         val = mant.astype(np.float64)
-        val *= _POW10S[np.clip(scale + _POW_OFFSET, 0, _POW10S.size - 1)]
+        val *= _POW10S[np.clip(scale.astype(np.int32) + _POW_OFFSET, 0, _POW10S.size - 1)]
         if nsign:
             np.negative(val, out=val, where=sign & (p == 45))
         return val, stop
@@ -209,15 +223,16 @@ class ValueReader:
                         cut = len(buf)
                     else:
                         continue
-                usable = buf[:cut + 1] if cut < len(buf) else buf
+                n_use = min(cut + 1, len(buf))
             else:
-                usable = buf
-            arr = np.frombuffer(usable, dtype=np.uint8)
-            fast = self._fast(usable, arr, need - done)
+                n_use = len(buf)
+            arr = np.frombuffer(buf, dtype=np.uint8, count=n_use)  # no copy
+            fast = self._fast(buf, arr, need - done)
             if fast is not None:
                 vals, end_byte = fast
                 take = vals.size
             else:
+                usable = buf[:n_use]
                 nonws = np.frombuffer(usable.translate(_CLASS), dtype=bool)
                 edges = np.flatnonzero(np.diff(nonws, prepend=False, append=False))
                 starts, ends = edges[0::2], edges[1::2]
@@ -234,11 +249,11 @@ class ValueReader:
                 vals = self._decode(s, e, usable, end_byte, what)
             if not np.isfinite(vals).all():
                 k = int(np.flatnonzero(~np.isfinite(vals))[0])
-                raise InputFormatError(self.path, self.line + _line_of_token(usable, k),
+                raise InputFormatError(self.path, self.line + _line_of_token(buf[:n_use], k),
                                        f"{what} contains NaN or inf", field=what)
             out[done:done + take] = vals
             done += take
-            self.line += usable.count(b"\n", 0, end_byte)
+            self.line += buf.count(b"\n", 0, end_byte)
             self.pending = buf[end_byte:]
 
     def _fast(self, usable: bytes, arr: np.ndarray, need: int):

@@ -74,7 +74,11 @@ def read_poscar_header(hr: HeaderReader, path):
     except Exception as exc:  # ASE raises many kinds on malformed headers
         raise InputFormatError(path, first, f"structure header not readable ({type(exc).__name__}: {exc})",
                                field="structure") from None
-    if not atoms.get_volume() > 0:
+    try:
+        volume = float(abs(np.linalg.det(atoms.cell.array)))
+    except (ValueError, np.linalg.LinAlgError):
+        volume = 0.0
+    if not volume > 0 or atoms.cell.rank < 3:
         raise InputFormatError(path, first + 1, "cell has no positive volume", field="lattice")
     return atoms
 
@@ -124,7 +128,7 @@ def read_chgcar(path, quantity: str = "auto", progress: bool = True) -> list[Gri
             raise InputFormatError(path, hr.line, f"grid counts must be positive, got {dims}", field="grid counts")
         total = dims[0] * dims[1] * dims[2]
         check_declared_size(path, total, "grid", hr.line, comp)
-        volume = atoms.get_volume()
+        volume = float(abs(np.linalg.det(atoms.cell.array)))
         bar = progress_bar(path, progress, comp)
         try:
             reader = hr.values(bar)

@@ -13,7 +13,7 @@ from pathlib import Path
 from ..case import Family
 from ..errors import InputFormatError
 
-__all__ = ["load_family", "check_manifest", "LABEL_KEYS"]
+__all__ = ["load_family", "check_manifest", "LABEL_KEYS", "MAX_MANIFEST_BYTES", "MAX_NESTING", "MAX_TABLES"]
 
 #: free labels a case may carry directly (others go under ``[case.labels]``)
 LABEL_KEYS = ("motif", "cation", "anion", "vacancy", "defect", "variant")
@@ -21,6 +21,12 @@ _FAMILY_KEYS = {"name", "description"}
 _HOST_KEYS = {"name", "path", "description"}
 _CASE_KEYS = {"name", "host", "path", "charge", "labels", "description", *LABEL_KEYS}
 _TOP_KEYS = {"family", "references", "host", "case"}
+
+#: limits that keep a hostile or mistaken manifest from exhausting time or memory (a family of a
+#: few hundred cases is ~50 kB, two or three levels deep)
+MAX_MANIFEST_BYTES = 1_000_000
+MAX_NESTING = 16
+MAX_TABLES = 5000
 
 _HEADER = re.compile(r"^\s*(\[\[?)\s*([A-Za-z0-9_.\-]+)\s*\]\]?")
 _KEY = re.compile(r'^\s*("?)([A-Za-z0-9_\-]+)\1\s*=')
@@ -55,11 +61,27 @@ def _line_map(text: str):
     return out
 
 
+def _too_deep(data) -> str | None:
+    """Top-level key under which containers nest more than MAX_NESTING deep, or None (iterative)."""
+    stack = [(v, 1, k) for k, v in data.items()]
+    while stack:
+        v, depth, top = stack.pop()
+        if isinstance(v, (dict, list)):
+            if depth > MAX_NESTING:
+                return top
+            stack.extend((x, depth + 1, top) for x in (v.values() if isinstance(v, dict) else v))
+    return None
+
+
 def check_manifest(path):
     """Parse and validate a manifest; returns (data, problems, lines) where problems is a list
     of (line, message)."""
     path = Path(path)
     try:
+        size = path.stat().st_size
+        if size > MAX_MANIFEST_BYTES:
+            raise InputFormatError(path, None, f"manifest is {size:,d} bytes, larger than the limit of "
+                                   f"{MAX_MANIFEST_BYTES:,d} (is this really a family manifest?)")
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise InputFormatError(path, None, "manifest does not exist") from None
@@ -70,6 +92,14 @@ def check_manifest(path):
     except tomllib.TOMLDecodeError as exc:
         m = re.search(r"line (\d+)", str(exc))
         raise InputFormatError(path, int(m.group(1)) if m else None, f"not valid TOML ({exc})") from None
+    except RecursionError:  # the standard TOML parser recurses once per nesting level
+        raise InputFormatError(path, None, f"values nested too deeply (limit {MAX_NESTING} levels)") from None
+    deep = _too_deep(data)
+    if deep is not None:
+        raise InputFormatError(path, None, f"values nested too deeply under {deep!r} (limit {MAX_NESTING} levels)")
+    n_tables = sum(len(data[k]) for k in ("host", "case") if isinstance(data.get(k), list))
+    if n_tables > MAX_TABLES:
+        raise InputFormatError(path, None, f"{n_tables} [[host]]/[[case]] tables, more than the limit of {MAX_TABLES}")
     lines = _line_map(text)
     problems: list[tuple[int | None, str]] = []
     base = path.parent
@@ -89,6 +119,9 @@ def check_manifest(path):
     for k in fam:
         if k not in _FAMILY_KEYS:
             problems.append((at("family", 0, k), f"unknown key {k!r} in [family] (allowed: name, description)"))
+    for k in ("name", "description"):
+        if k in fam and not isinstance(fam[k], str):
+            problems.append((at("family", 0, k), f"[family] {k} must be a string"))
     if "references" in data and not isinstance(data["references"], dict):
         problems.append((at("", 0, "references"), "[references] must be a table"))
     hosts = data.get("host", [])
@@ -96,6 +129,10 @@ def check_manifest(path):
     if not isinstance(hosts, list) or not isinstance(cases, list):
         problems.append((None, "use [[host]] and [[case]] (arrays of tables)"))
         hosts, cases = (hosts if isinstance(hosts, list) else []), (cases if isinstance(cases, list) else [])
+    for kind, items in (("host", hosts), ("case", cases)):
+        if not all(isinstance(x, dict) for x in items):
+            problems.append((at("", 0, kind), f"{kind!r} must be written as [[{kind}]] tables, not a list of values"))
+    hosts, cases = [h for h in hosts if isinstance(h, dict)], [c for c in cases if isinstance(c, dict)]
     host_names: dict[str, int] = {}
     for i, h in enumerate(hosts):
         for k in h:
@@ -127,7 +164,9 @@ def check_manifest(path):
                                  f"(first at line {case_names[name]})"))
             else:
                 case_names[name] = at("case", i, "name")
-        if "host" in c and c["host"] not in host_names:
+        if "host" in c and not isinstance(c["host"], str):
+            problems.append((at("case", i, "host"), f"host of case {name!r} must be a string naming a [[host]]"))
+        elif "host" in c and c["host"] not in host_names:
             problems.append((at("case", i, "host"), f"case {name!r} names host {c['host']!r}, which no [[host]] "
                              f"defines (hosts: {', '.join(host_names) or 'none'})"))
         if "charge" in c and (not isinstance(c["charge"], int) or isinstance(c["charge"], bool)):
