@@ -250,3 +250,22 @@ def test_moment_comparison_rejects_bad_windows_and_missing_pdos(case):
         neighbour_moments(c.replace(host_pdos=None), ssh_site(), alignment=0.0)
     by_orbital = neighbour_moments(c, ssh_site(), alignment=0.0, by="orbital")
     assert {r.orbital for r in by_orbital.rows} == {"s"}
+
+
+def test_alignment_on_a_deep_channel(case):
+    # far atoms: a deep s peak moved by +0.30 eV and a valence p peak moved by +0.10 eV in the
+    # defect cell; aligning on the deep s channel must return −0.30 eV (construction; Gaussian lines)
+    site = ssh_site()
+    e = np.linspace(-16, 4, 8001)
+    line = lambda c0: np.exp(-0.5 * ((e - c0) / 0.25) ** 2)
+    n = len(case.host)
+    chans_h = [(i, "C", o, 0) for i in range(n) for o in ("s", "p")]
+    chans_d = [(i, "C", o, 0) for i in range(n - 1) for o in ("s", "p")]
+    hp = ProjectedDOS(e, np.stack([line(-12.0), line(-2.0)] * n), chans_h, fermi=0.0)
+    dp = ProjectedDOS(e, np.stack([line(-11.7), line(-1.9)] * (n - 1)), chans_d, fermi=0.0)
+    c = case.replace(host_pdos=hp, defect_pdos=dp)
+    deep = align(c, site, method="pdos", l=0, window=(-14.0, -10.0))
+    assert deep.shift == pytest.approx(-0.30, abs=1e-6)
+    assert "l=0" in deep.method
+    valence = align(c, site, method="pdos", l=1, window=(-4.0, 0.0))
+    assert valence.shift == pytest.approx(-0.10, abs=1e-6)
