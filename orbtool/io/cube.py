@@ -168,6 +168,9 @@ def read_cube(path, quantity: str = "auto", progress: bool = True) -> list[Grid]
             vals = np.ascontiguousarray(vals)
         meta = {"format": "cube", "quantity": q, "quantity_reason": why, "comments": comments,
                 "length_unit": "bohr" if signs[0] else "angstrom", "conversion_factor": factor}
+        if comments.startswith("Cube file from ASE") and q != "raw":
+            meta["note"] = ("written by ASE, which stores the array it is given without converting it; if that "
+                            "array was already per Å³, read with quantity='raw' (check Grid.integrate())")
         grids.append(Grid(values=vals, cell=cell, origin=origin, atoms=atoms, unit=unit, source=str(path),
                           name=names[k], pbc=True, meta=meta))
     return grids
