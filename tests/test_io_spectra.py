@@ -23,7 +23,7 @@ def test_doscar_spin_lm():
     p = orbtool.io.read_pdos(FIX / "vasp_spin" / "DOSCAR")
     assert p.nspin == 2 and p.orbital_resolution() == "lm" and len(p.channels) == 2 * 9 * 2
     assert p.atoms.get_chemical_symbols() == ["Ga", "As"]  # from the POSCAR beside it
-    assert p.fermi == 0.5
+    assert p.fermi == 0.5  # EFERMI on line 6 of the fixture
     for s in (0, 1):  # DOSCAR: total DOS = sum of the per-atom lm channels (values written to 4 digits)
         np.testing.assert_allclose(p.select(spin=s), p.total[s], rtol=1e-3)
     # the VASP lm order: s py pz px dxy dyz dz2 dxz dx2-y2, up/down interleaved per orbital
@@ -55,7 +55,7 @@ def test_projwfc(folder, nspin):
 def test_cp2k_pdos_counts_electrons():
     p = orbtool.io.read_pdos(FIX / "cp2k", sigma=0.05)
     assert p.nspin == 1 and {c.element for c in p.channels} == {"Ga", "As"}
-    assert p.fermi == pytest.approx(-0.1 * HARTREE)
+    assert p.fermi == pytest.approx(-0.1 * HARTREE)  # "E(Fermi) = -0.1 a.u." in the header; 1 Ha from ase.units
     # broadened weights integrate to 2 × (sum of the weights) for a closed shell
     w = sum(np.loadtxt(FIX / "cp2k" / f"demo-k{k}-1.pdos")[:, 3:].sum() for k in (1, 2))
     assert p.integrate(p.select()) == pytest.approx(2 * w, rel=1e-6)
@@ -81,6 +81,7 @@ def test_procar_nospin_l():
 
 
 def test_energies():
+    # last "E0=" of the fixture OSZICAR and last "energy(sigma->0)" of the fixture OUTCAR (README table)
     assert orbtool.io.read_energy(FIX / "vasp_spin" / "OSZICAR") == pytest.approx(-9.8771234)
     assert orbtool.io.read_energy(FIX / "vasp_nospin" / "OUTCAR") == pytest.approx(-10.20612345)
 
