@@ -16,8 +16,13 @@ _LAZY = {
     "align": "alignment", "Alignment": "alignment",
     # density
     "partition_spheres": "density", "partition_voronoi": "density", "localisation": "density",
+    "NoGapError": "states",
+    "partition": "density", "Partition": "density", "Localisation": "density",
+    "compare_routes": "character", "RouteComparison": "character",
     # moments and recursion
     "pdos_moments": "moments", "compare_moments": "moments", "recursion_coefficients": "recursion",
+    "dos_moments": "moments", "channel_moments": "moments", "neighbour_moments": "moments",
+    "MomentComparison": "moments", "Recursion": "recursion",
 }
 
 __all__ = sorted(_LAZY)
@@ -31,7 +36,7 @@ def __getattr__(name: str):
         value = getattr(importlib.import_module(f"orbtool.analysis.{mod}"), name)
     except AttributeError:
         # the name may live in a sibling module; search the analysis modules once
-        for other in ("geometry", "states", "alignment", "density", "moments", "recursion"):
+        for other in ("geometry", "states", "alignment", "density", "moments", "recursion", "character"):
             try:
                 m = importlib.import_module(f"orbtool.analysis.{other}")
             except ImportError:
