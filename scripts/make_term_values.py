@@ -48,7 +48,8 @@ GRID = (150, 146)
 def basis_for(symbol: str, mode: str):
     """ANO-RCC functions for one atom.
 
-    ``"uncontracted"``: every distinct primitive with l ≤ 2 as its own function (used for the
+    ``"uncontracted"``: every distinct primitive with l ≤ 2 (l ≤ 3 for atoms with 4f electrons) as its
+    own function (used for the
     non-relativistic column: the ANO-RCC contractions are relativistic and would bias it).
     ``"trimmed"``: per l the occupied shells plus EXTRA_CONTRACTIONS natural-orbital contractions
     (l ≤ 2) and one f; the ANOs are ordered by occupation, so this is the usual truncation. Used for
@@ -63,10 +64,11 @@ def basis_for(symbol: str, mode: str):
     if mode == "full":
         return shells
     if mode == "uncontracted":
+        lmax = 3 if elements.CONFIGURATION[elements.charge(symbol)][3] else 2  # f primitives for 4f atoms
         seen, out = set(), []
         for shell in shells:
             for row in shell[1:]:
-                if shell[0] <= 2 and (shell[0], row[0]) not in seen:
+                if shell[0] <= lmax and (shell[0], row[0]) not in seen:
                     seen.add((shell[0], row[0]))
                     out.append([shell[0], [row[0], 1.0]])
         return out
@@ -154,8 +156,6 @@ def main(argv=None):
     ap.add_argument("--out", default=str(Path(__file__).resolve().parents[1] / "orbtool" / "data" /
                                          "term_values_lda.json"))
     args = ap.parse_args(argv)
-    import pyscf
-
     old = json.loads(Path(args.out).read_text()) if args.update else None
     table = dict(old["elements"]) if old else {}
     columns = [c for c in ("nr", "sr") if c in args.columns.split(",")]
@@ -169,12 +169,18 @@ def main(argv=None):
             entry[tag + "_hartree"] = {k: round(v, 6) for k, v in val.items()}
             entry[tag + "_total_energy_hartree"] = round(etot, 6)
             entry["flags"] = flags
-            entry[tag + "_basis"] = {"uncontracted": "ano-rcc primitives l<=2, uncontracted",
+            entry[tag + "_basis"] = {"uncontracted": "ano-rcc primitives l<=2 (l<=3 with 4f), uncontracted",
                                      "trimmed": f"ano-rcc, occupied + {EXTRA_CONTRACTIONS} contractions per "
                                                 "l<=2, one f", "full": "ano-rcc, all contractions"}[BASIS_MODE[tag]]
             print(f"{sym:2s} {tag} {time.time() - t0:6.1f}s  " +
                   "  ".join(f"{k} {v:9.4f}" for k, v in entry[tag].items()), flush=True)
         table[sym] = entry
+        write(args.out, table)
+
+
+def write(out, table):
+    import pyscf
+
     doc = {
         "description": "Valence orbital energies (eV, negative = bound) of neutral spherical atoms",
         "method": f"pyscf {pyscf.__version__} AtomSphAverageRKS, xc={XC}, basis={BASIS} (contractions per "
@@ -185,8 +191,7 @@ def main(argv=None):
         "units": "eV (Hartree copies under *_hartree)",
         "elements": table,
     }
-    Path(args.out).write_text(json.dumps(doc, indent=1, ensure_ascii=False) + "\n")
-    print("wrote", args.out)
+    Path(out).write_text(json.dumps(doc, indent=1, ensure_ascii=False) + "\n")
 
 
 if __name__ == "__main__":

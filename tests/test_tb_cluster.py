@@ -153,3 +153,26 @@ def test_bad_inputs():
     with pytest.raises(ModelError, match="needs d-state radii"):
         ClusterModel.around(site, "spd", onsite={"Si": (-13.55, -6.52, -2.0)})
     assert skm.n_orbitals(2) == 9
+
+
+def test_model_from_the_vacancy_locator():
+    # The geometry engine's VacancySite drives the model; the Si vacancy's four hybrids split into
+    # a1 + t2 in Td (Coulson & Kearsley 1957; G. D. Watkins' one-electron vacancy model).
+    from ase.build import bulk
+
+    from orbtool.analysis import locate_vacancy
+
+    host = bulk("Si", "diamond", a=5.431, cubic=True).repeat(2)
+    defect = host.copy()
+    del defect[0]
+    site = locate_vacancy(host, defect)
+    m = ClusterModel.around(site, "hybrid")
+    assert site.point_group == "Td" and "breathing" in m.modes
+    from orbtool.tb.symmetry import label_levels
+
+    lv = m.solve()
+    labels = label_levels(lv.energies[0], lv.vectors[0], m.vectors, site.point_group, m.operations, 1, True)
+    assert sorted(labels) == ["a1", "t2", "t2", "t2"]
+    # predict(geometry=...) recomputes the vectors from the edited Atoms by minimum image
+    inward = m.vectors_from(site.breathe(-0.05))
+    np.testing.assert_allclose(np.linalg.norm(inward, axis=1), 0.95 * np.linalg.norm(m.vectors, axis=1), rtol=1e-6)

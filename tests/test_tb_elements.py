@@ -12,7 +12,13 @@ from orbtool.tb import available_elements, term_values
 from orbtool.units import HARTREE
 
 NIST_LDA = {"O": (-0.871362, -0.338381), "S": (-0.630912, -0.261676), "Cl": (-0.754458, -0.320380),
-            "Si": (-0.398139, -0.153293)}
+            "Si": (-0.398139, -0.153293),
+            # heavier: REFERENCES [2nd, one transcription]
+            "Ga": (-0.328019, -0.101634), "Ge": (-0.426523, -0.149882), "As": (-0.523670, -0.197497),
+            "Se": (-0.621248, -0.245807), "Br": (-0.720066, -0.295334), "In": (-0.290497, -0.101782),
+            "Sn": (-0.369349, -0.144450), "Sb": (-0.445605, -0.185623), "Te": (-0.520997, -0.226594),
+            "I": (-0.596339, -0.267904), "Tl": (-0.285020, -0.101507), "Pb": (-0.357187, -0.141831),
+            "Bi": (-0.426129, -0.180198), "Zn": (-0.222725, None), "Cd": (-0.204228, None)}
 REQUIRED = ("H Li B C N O F Na Mg Al Si P S Cl K Ca Zn Ga Ge As Se Br Rb Sr Cd In Sn Sb Te I Cs Ba Hg Tl "
             "Pb Bi").split()
 
@@ -21,8 +27,9 @@ REQUIRED = ("H Li B C N O F Na Mg Al Si P S Cl K Ca Zn Ga Ge As Se Br Rb Sr Cd I
 def test_nonrelativistic_lda_matches_nist(el):
     tv = term_values(el, "lda-nr")
     s, p = NIST_LDA[el]
-    assert tv.s == pytest.approx(s * HARTREE, abs=0.05)
-    assert tv.p == pytest.approx(p * HARTREE, abs=0.05)
+    assert tv.s == pytest.approx(s * HARTREE, abs=0.03)
+    if p is not None:
+        assert tv.p == pytest.approx(p * HARTREE, abs=0.03)
 
 
 def test_coverage_and_relativistic_trends():
@@ -48,7 +55,7 @@ def test_harrison_table_and_errors():
     assert term_values("Si").s > tv.s
     with pytest.raises(ModelError, match="no term values for element 'Xx'"):
         term_values("Xx")
-    with pytest.raises(ModelError, match="only offered up to Ar"):
-        term_values("Sn", "lda-nr")
+    # relativity binds the 5s of Sn more strongly than the non-relativistic calculation (Pyykkö 1988)
+    assert term_values("Sn", "lda-sr").s < term_values("Sn", "lda-nr").s - 0.3
     with pytest.raises(ModelError, match="unknown term-value source"):
         term_values("Si", "hf")

@@ -14,6 +14,25 @@ from .cluster import Levels
 _DEGENERATE = 1e-5  # eV: levels closer than this are one multiplet
 
 
+def fixed_level_index(model, m: int):
+    """Rank of the defect level when it does not depend on the eigenvectors, else None.
+
+    Integer ``level``: that rank. Hybrid model with "auto"/"homo": the level holding the last of the
+    formal electrons (two per level, from the bottom). Full clusters with "auto"/"dangling": None (the
+    level with the largest dangling-hybrid weight is picked per evaluation)."""
+    lev = model.level
+    if isinstance(lev, (int, np.integer)):
+        if not -m <= lev < m:
+            raise ModelError(f"level {lev} out of range: the cluster has {m} levels")
+        return int(lev) % m
+    if lev in ("auto", "homo") and model.orbitals == "hybrid":
+        ne = model.electrons if model.electrons is not None else 0.0
+        return int(np.clip(np.ceil(ne / 2.0) - 1, 0, m - 1))
+    if lev in ("auto", "dangling"):
+        return None
+    raise ModelError(f"level must be 'auto', 'homo' (hybrid), 'dangling' or an integer, got {lev!r}")
+
+
 class CompiledCluster:
     """A :class:`ClusterModel` with its geometry-dependent parts cached (see ``_compiled``)."""
 
@@ -119,18 +138,8 @@ class CompiledCluster:
             dang = np.ones((B, m))
         else:
             dang = self._dangling(V, p, B)
-        lev = model.level
-        if isinstance(lev, (int, np.integer)):
-            if not -m <= lev < m:
-                raise ModelError(f"level {lev} out of range: the cluster has {m} levels")
-            idx = np.full(B, int(lev) % m)
-        elif lev in ("auto", "homo") and model.orbitals == "hybrid":
-            ne = model.electrons if model.electrons is not None else 0.0
-            idx = np.full(B, int(np.clip(np.ceil(ne / 2.0) - 1, 0, m - 1)))
-        elif lev in ("auto", "dangling"):
-            idx = np.argmax(dang, axis=1)
-        else:
-            raise ModelError(f"level must be 'auto', 'homo' (hybrid), 'dangling' or an integer, got {lev!r}")
+        fixed = fixed_level_index(model, m)
+        idx = np.full(B, fixed) if fixed is not None else np.argmax(dang, axis=1)
         level = E[np.arange(B), idx]
         multiplet = (np.abs(E - level[:, None]) < _DEGENERATE).astype(float)  # (B, m)
         deg = multiplet.sum(1)

@@ -7,10 +7,10 @@ Sources (``source=``)
     ``scripts/make_term_values.py`` with pyscf (Slater + VWN5, ANO-RCC basis, spin-free X2C for the
     relativistic Hamiltonian). Covers H–Bi main-group elements and Zn, Cd, Hg.
 ``"lda-nr"``
-    The same without relativity, H–Ar only; it reproduces the NIST LDA atomic reference data
-    (Kotochigova et al., Phys. Rev. A 55, 191 (1997)) to ≲ 0.05 eV (tests/test_tb_elements.py). For
-    heavier atoms the non-relativistic column of the table is *not* offered: the truncated ANO-RCC
-    contractions are relativistic and bias it (by 0.1–1 eV against NIST for the 4p/5p rows).
+    The same without relativity (uncontracted basis); it reproduces the NIST LDA atomic reference
+    data (Kotochigova et al., Phys. Rev. A 55, 191 (1997)) to ≲ 0.02 eV for the valence s and p levels
+    checked in tests/test_tb_elements.py. Use it to compare with non-relativistic references; for
+    5p/6p elements the relativistic column is the physically right one.
 ``"harrison1980"``
     Harrison's 1980 Solid State Table (transcribed, 16 elements); the values paired with the 1980 η set.
 
@@ -24,8 +24,6 @@ import json
 from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
-
-from ase.data import atomic_numbers
 
 from ..errors import ModelError
 
@@ -98,9 +96,6 @@ def term_values(element: str, source: str = "lda-sr") -> TermValues:
         raise ModelError(f"no term values for element {element!r} in source {source!r} "
                          f"(available: {', '.join(doc['elements'])}); pass onsite={{...}} explicitly "
                          f"or choose another term_values source")
-    if source == "lda-nr" and atomic_numbers.get(element, 0) > 18:
-        raise ModelError(f"non-relativistic term values are only offered up to Ar; {element} needs "
-                         "'lda-sr' (see orbtool/data provenance)")
     if source.startswith("lda"):
         vals = entry[source[-2:]]
         flags = entry.get("flags", [])

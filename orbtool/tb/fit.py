@@ -83,12 +83,25 @@ class _Problem:
         vals = np.stack([lv.level - vbm, s_frac, shell1], axis=1)
         return np.repeat(vals[:, None, :], len(self.by_case[case]), axis=1)
 
-    def residuals(self, X, cases=None):
+    def stacked(self):
+        """The one-batch evaluator for all cases (hybrid models), or None."""
+        if not hasattr(self, "_stacked"):
+            from ._stacked import StackedHybrid
+
+            self._stacked = StackedHybrid.make(self)
+        return self._stacked
+
+    def residuals(self, X, cases=None, stacked: bool = True):
         """(B, nres) whitened residuals."""
         X = np.atleast_2d(X)
         out = []
-        for case in (cases or self.by_case):
-            mv = self.model_values(case, X)
+        st = self.stacked() if stacked and cases is None else None
+        allv = st.values(X) if st is not None else None
+        for ci, case in enumerate(cases or self.by_case):
+            if allv is not None:
+                mv = np.repeat(allv[:, ci, None, :], len(self.by_case[case]), axis=1)
+            else:
+                mv = self.model_values(case, X)
             for k, t in enumerate(self.by_case[case]):
                 w = np.sqrt(t.weight)
                 out.append(w * (mv[:, k, 0] - t.above_vbm) / t.sigma_level)
