@@ -246,3 +246,16 @@ def test_chgcar_in_the_codes_own_layout(tmp_path):
     np.testing.assert_allclose(total.values, rho, rtol=1e-10)
     np.testing.assert_allclose(m.values, mag, rtol=1e-9, atol=1e-15)
     assert m.name == "magnetisation"
+
+
+def test_chg_with_several_images(tmp_path):
+    # CHG of a multi-step run holds one structure + grid per image (ASE writes and reads all of them)
+    atoms = bulk("Si")
+    v = VaspChargeDensity(None)
+    rng = np.random.default_rng(10)
+    v.atoms, v.chg = [atoms, atoms], [rng.random((4, 4, 5)), rng.random((4, 4, 5))]
+    v.write(str(tmp_path / "CHG"), format="chg")
+    ref = VaspChargeDensity(str(tmp_path / "CHG"))
+    (g,) = orbtool.io.read_grids(tmp_path / "CHG", cache=False)
+    np.testing.assert_allclose(g.values, ref.chg[0], rtol=1e-10)
+    assert "only the first" in g.meta["notes"][0]

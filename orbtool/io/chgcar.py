@@ -199,6 +199,10 @@ def _skip_to_next_block(reader, dims, atoms, path, notes) -> bool:
         try:
             [float(t) for t in toks]
         except ValueError:
+            if strip_compression(Path(path).name).upper() in ("CHG",) and stray == 0:
+                # CHG files of a run with several ionic steps repeat structure + grid per image
+                notes.append(f"line {reader.line - 1}: another image follows; only the first was read")
+                return False
             raise InputFormatError(path, reader.line - 1, f"unexpected line after a grid block: "
                                    f"{line.strip()[:40]!r} (expected augmentation occupancies, "
                                    "grid counts or the end of the file)", field="grid values") from None
