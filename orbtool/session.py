@@ -235,4 +235,9 @@ def load_session(path) -> Any:
         raise SessionError(f"{path}: no such session file") from None
     except (zipfile.BadZipFile, KeyError, ValueError, json.JSONDecodeError) as exc:
         raise SessionError(f"{path}: damaged or not a session file ({exc})") from None
-    return _decode(doc["content"], arrays)
+    try:
+        return _decode(doc["content"], arrays)
+    except (KeyError, IndexError, TypeError, AttributeError, ValueError) as exc:
+        # a tree that names an array or field the archive lacks (or of the wrong shape)
+        raise SessionError(f"{path}: damaged session content ({type(exc).__name__}: {exc}); "
+                           "the file was cut or edited") from None
