@@ -18,12 +18,12 @@ def board_rows(analysis) -> list[dict]:
     Text-only columns other than the labels are dropped."""
     rows = []
     for r in analysis.table():
-        row = {"name": r.get("case")}
+        row = {"name": r.get("name", r.get("case"))}
         for k, v in r.items():
-            if k in ("case", "error", "transition_levels"):
+            if k in ("case", "name", "error", "transition_levels"):
                 continue
             row[k] = v
-        row["above_vbm"] = r.get("level_above_vbm")
+        row["above_vbm"] = r.get("above_vbm", r.get("level_above_vbm"))
         rows.append(row)
     return rows
 

@@ -17,6 +17,7 @@ import shutil
 import socket
 import subprocess
 import sys
+import tempfile
 import time
 import urllib.request
 from pathlib import Path
@@ -106,8 +107,9 @@ def chromium():
 def test_app_notebook_in_jupyterlab(chromium, tmp_path):
     from playwright.sync_api import sync_playwright
 
-    shots = tmp_path / "screenshots"
-    shots.mkdir()
+    # artifacts outlive pytest's tmp_path rotation: a folder of their own (or ORBTOOL_BROWSER_ARTIFACTS)
+    shots = Path(os.environ.get("ORBTOOL_BROWSER_ARTIFACTS") or tempfile.mkdtemp(prefix="orbtool-browser-"))
+    shots.mkdir(parents=True, exist_ok=True)
     print(f"screenshots in {shots}")
     shutil.copy(NOTEBOOK, tmp_path / NOTEBOOK.name)
     token, port = secrets.token_hex(16), _free_port()
