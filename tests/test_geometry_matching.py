@@ -35,6 +35,9 @@ def _make_defect(host, removed, rattle, seed, shift, permute):
     rng = np.random.default_rng(seed)
     d.positions += rng.normal(scale=rattle, size=d.positions.shape)
     d.positions += shift
+    # some atoms written as other periodic images (codes differ in how they wrap positions)
+    wrap = rng.random(len(d)) < 0.3
+    d.positions[wrap] += rng.integers(-1, 2, size=(int(wrap.sum()), 3)) @ d.cell.array
     if permute:
         d = d[rng.permutation(len(d))]
     return d
