@@ -28,6 +28,25 @@ def _format(path, format, kind):
     return p, fmt
 
 
+def _format_reason(p, fmt, given) -> str:
+    """How the format was chosen, for the result's ``meta['format_reason']`` (a guess is a guess)."""
+    if given is not None:
+        return f"format {fmt.name!r} given by the caller"
+    if p.is_dir():
+        return f"format {fmt.name!r} guessed from the files in the folder (pass format= to override)"
+    from .registry import _head_lines
+    by = "content" if fmt.sniff is not None and fmt.sniff(p.name, _head_lines(p)) else "file name"
+    if fmt.name == "npz":
+        by = "NPZ archive"
+    return f"format {fmt.name!r} guessed from the file's {by} (pass format= to override)"
+
+
+def _note_format(obj, p, fmt, given):
+    if isinstance(getattr(obj, "meta", None), dict):
+        obj.meta["format_reason"] = _format_reason(p, fmt, given)
+    return obj
+
+
 def read_grids(path, format: str | None = None, *, cache: bool = True, quantity: str = "auto",
                progress: bool = True) -> list[Grid]:
     """Every grid in a volumetric file (total and spin density of a spin-polarised
@@ -58,16 +77,16 @@ def read_grids(path, format: str | None = None, *, cache: bool = True, quantity:
                                field="quantity")
     p, fmt = _format(path, format, "grid")
     if fmt.name == "npz":
-        return [reader_of(fmt)(p, kind="grid")]
+        return [_note_format(reader_of(fmt)(p, kind="grid"), p, fmt, format)]
     options = {"format": fmt.name, "quantity": quantity}
     if cache:
         hit = _cache.load_cached(p, options)
         if hit is not None:
-            return hit
+            return [_note_format(g, p, fmt, format) for g in hit]
     grids = reader_of(fmt)(p, quantity=quantity, progress=progress)
     if cache:
         _cache.store_cached(p, options, grids)
-    return grids
+    return [_note_format(g, p, fmt, format) for g in grids]
 
 
 def read_grid(path, format: str | None = None, *, cache: bool = True, index: int | None = None,
@@ -97,21 +116,23 @@ def read_pdos(path_or_folder, format: str | None = None, **options) -> Projected
         from .registry import folder_members
         doscar = [f for f in folder_members(p, get_format("doscar"))]
         if doscar:
-            return reader_of(get_format("doscar"))(doscar[0], **options)
+            pdos = reader_of(get_format("doscar"))(doscar[0], **options)
+            pdos.meta["format_reason"] = f"folder read through its DOSCAR-like file {doscar[0].name!r}"
+            return pdos
         fmt = guess_format(p, "pdos")
     else:
         p, fmt = _format(p, format, "pdos")
     if fmt.name == "npz":
-        return reader_of(fmt)(p, kind="pdos")
-    return reader_of(fmt)(p, **options)
+        return _note_format(reader_of(fmt)(p, kind="pdos"), p, fmt, format)
+    return _note_format(reader_of(fmt)(p, **options), p, fmt, format)
 
 
 def read_projections(path, format: str | None = None, **options) -> BandProjections:
     """Band-resolved projections from a PROCAR, orbtool text or NPZ file."""
     p, fmt = _format(path, format, "projections")
     if fmt.name == "npz":
-        return reader_of(fmt)(p, kind="projections")
-    return reader_of(fmt)(p, **options)
+        return _note_format(reader_of(fmt)(p, kind="projections"), p, fmt, format)
+    return _note_format(reader_of(fmt)(p, **options), p, fmt, format)
 
 
 def _out_format(path, format, allowed, default):
