@@ -210,6 +210,19 @@ class Grid:
                  f"  integral      {self.integrate():.6g} {self.unit}·Å^3"]
         if self.atoms is not None:
             lines.append(f"  atoms         {len(self.atoms)} ({self.atoms.get_chemical_formula()})")
+        # what the reader decided or guessed (format, units, quantity) is part of the story
+        m = self.meta
+        if "format" in m or "format_reason" in m:
+            lines.append(f"  format        {m.get('format', '?')}" + (f": {m['format_reason']}" if "format_reason" in m
+                                                                       else ""))
+        if "length_unit" in m:
+            lines.append(f"  file lengths  {m['length_unit']} (converted to Å)")
+        if "quantity" in m:
+            lines.append(f"  quantity      {m['quantity']}" + (f": {m['quantity_reason']}" if m.get("quantity_reason")
+                                                               else ""))
+        for key in ("note", "structure"):
+            if m.get(key):
+                lines.append(f"  note: {m[key]}")
         return "\n".join(lines)
 
 
