@@ -96,6 +96,11 @@ def analyze_case(case) -> CaseAnalysis:
         out.states = list(in_gap_states(case, site=out.site))
         if out.states:
             out.state = max(out.states, key=lambda s: (s.shell_fractions.get(1, 0.0), -abs(s.spin)))
+            if len(out.states) > 1:  # a choice: say which state and why
+                st = out.state
+                out.notes.append(f"{len(out.states)} in-gap states; the defect state is taken to be band {st.band} "
+                                 f"spin {st.spin} at VBM + {st.above_vbm:.3f} eV, the one with the largest first-shell "
+                                 f"weight ({st.shell_fractions.get(1, 0.0):.2f})")
         else:
             out.notes.append("no state in the gap: the vacancy leaves no deep Kohn–Sham level")
         try:
