@@ -6,6 +6,7 @@ values in Hartree as transcribed in the project's REFERENCES (Z ≤ 18: two tran
 """
 
 import pytest
+from ase.data import atomic_numbers
 
 from orbtool.errors import ModelError
 from orbtool.tb import available_elements, term_values
@@ -27,9 +28,11 @@ REQUIRED = ("H Li B C N O F Na Mg Al Si P S Cl K Ca Zn Ga Ge As Se Br Rb Sr Cd I
 def test_nonrelativistic_lda_matches_nist(el):
     tv = term_values(el, "lda-nr")
     s, p = NIST_LDA[el]
-    assert tv.s == pytest.approx(s * HARTREE, abs=0.03)
+    # measured: ≤ 2 meV through Kr, ≤ 25 meV for the 5p/6p rows (finite uncontracted basis, grid)
+    tol = 0.005 if atomic_numbers[el] <= 36 else 0.03
+    assert tv.s == pytest.approx(s * HARTREE, abs=tol)
     if p is not None:
-        assert tv.p == pytest.approx(p * HARTREE, abs=0.03)
+        assert tv.p == pytest.approx(p * HARTREE, abs=tol)
 
 
 def test_coverage_and_relativistic_trends():

@@ -5,12 +5,13 @@ Sources (``source=``)
 ``"lda-sr"`` (default)
     Scalar-relativistic LDA eigenvalues of spherically averaged neutral atoms, computed by
     ``scripts/make_term_values.py`` with pyscf (Slater + VWN5, ANO-RCC basis, spin-free X2C for the
-    relativistic Hamiltonian). Covers H–Bi main-group elements and Zn, Cd, Hg.
+    relativistic Hamiltonian); basis truncation costs ≈ 0.01–0.03 eV. Covers the main-group elements
+    H–Bi (no noble gases) and Zn, Cd, Hg.
 ``"lda-nr"``
     The same without relativity (uncontracted basis); it reproduces the NIST LDA atomic reference
-    data (Kotochigova et al., Phys. Rev. A 55, 191 (1997)) to ≲ 0.02 eV for the valence s and p levels
-    checked in tests/test_tb_elements.py. Use it to compare with non-relativistic references; for
-    5p/6p elements the relativistic column is the physically right one.
+    data (Kotochigova et al., Phys. Rev. A 55, 191 (1997)) to ≤ 2 meV through Kr and ≤ 25 meV for the
+    5p/6p rows (valence s and p levels, tests/test_tb_elements.py). Use it to compare with
+    non-relativistic references; for 5p/6p elements the relativistic column is the physically right one.
 ``"harrison1980"``
     Harrison's 1980 Solid State Table (transcribed, 16 elements); the values paired with the 1980 η set.
 
@@ -97,7 +98,9 @@ def term_values(element: str, source: str = "lda-sr") -> TermValues:
                          f"(available: {', '.join(doc['elements'])}); pass onsite={{...}} explicitly "
                          f"or choose another term_values source")
     if source.startswith("lda"):
-        vals = entry[source[-2:]]
+        vals = entry.get(source[-2:])
+        if vals is None:
+            raise ModelError(f"the {source!r} column has no value for {element} (see orbtool/data/TERM_VALUES.md)")
         flags = entry.get("flags", [])
         note = doc["method"] + ("; p is the lowest unoccupied level" if "p_unoccupied" in flags else "")
     else:
