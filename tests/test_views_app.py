@@ -274,3 +274,14 @@ def test_app_keeps_its_case_when_a_bad_path_is_loaded(case_and_site, tmp_path):
     app = App(case)
     assert app.loader.load(tmp_path / "missing.toml") is None
     assert app.case is case and "missing.toml" in app.loader.status.value
+
+
+def test_impossible_swap_is_reported_and_the_level_kept(standin_fit):
+    from orbtool.widgets import LevelExplorer
+
+    fit, site = standin_fit
+    le = LevelExplorer(fit, site, swaps=["Og"])  # no term values for oganesson in any table
+    level = le.prediction.level
+    le.swap.value = "Si → Og"
+    assert le.prediction.level == level
+    assert "previous result kept" in le.notes.value and "Og" in le.notes.value

@@ -136,15 +136,16 @@ def pdos_curves(picks: Mapping[str, Mapping], defect_pdos, host_pdos=None, *, de
 
 def states_data(states, vbm_shift: float = 0.0, ymax: float = 1.0) -> dict[str, list]:
     """Markers for in-gap states: ``x`` (eV, host scale minus VBM), ``y``,
-    ``text`` (occupation as "occ 1.00/2"), from DefectState-like objects
+    ``text`` (occupation as "occ 1.00/2"; successive markers stepped down by
+    10 % of ``ymax``), from DefectState-like objects
     (``energy_aligned`` or ``energy``, ``occupation``, ``max_occupation``)."""
     out = {"x": [], "y": [], "text": []}
-    for s in states or ():
+    for i, s in enumerate(states or ()):
         e = getattr(s, "energy_aligned", None)
         if e is None:
             e = s.energy
         out["x"].append(float(e) - vbm_shift)
-        out["y"].append(float(ymax))
+        out["y"].append(float(ymax) * (1.0 - 0.1 * (i % 5)))  # staggered so near-degenerate labels stay legible
         occ = getattr(s, "occupation", float("nan"))
         top = getattr(s, "max_occupation", None)
         out["text"].append(f"occ {occ:.2f}" + (f"/{top:g}" if top is not None else ""))

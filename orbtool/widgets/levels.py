@@ -162,7 +162,10 @@ class LevelExplorer:
         self.onsite = self._slider("onsite_shift", "on-site offset (eV)", 0.02)
         options = ["(as fitted)"]
         cands = _swap_candidates(self.first_elements) if swaps is None else list(swaps)
-        options += [f"{old} → {new}" for old in self.first_elements for new in cands]
+        pairs = [(old, new) for old in self.first_elements for new in cands]
+        if swaps is None:  # offer only swaps the fitted model can evaluate (term values in its source)
+            pairs = [(o, n) for o, n in pairs if attempt(self._predict, None, {o: n}, 1.0, 0.0)[1] is None]
+        options += [f"{old} → {new}" for old, new in pairs]
         self.swap = w.Dropdown(options=options, description="swap cation", style={"description_width": "150px"},
                                layout=w.Layout(width="400px"))
         self.readout = w.HTML()
@@ -177,20 +180,22 @@ class LevelExplorer:
 
     # --------------------------------------------------------------- model
     def _geometry(self):
-        geo = None
+        """New defect cell for the geometry knobs, or None. Breathing and a
+        distortion mode are displacements of the first shell; together they
+        are added (both are small, linear patterns about the relaxed cell)."""
         if self.site is None:
             return None
+        parts = []
         if not self.breathing.disabled and abs(self.breathing.value) > 0:
-            geo = self.site.breathe(self.breathing.value)
+            parts.append(self.site.breathe(self.breathing.value))
         if not self.amplitude.disabled and abs(self.amplitude.value) > 0:
-            base = self.site if geo is None else self._site_with(geo)
-            geo = base.distort(self.mode.value, self.amplitude.value)
+            parts.append(self.site.distort(self.mode.value, self.amplitude.value))
+        if len(parts) < 2:
+            return parts[0] if parts else None
+        base = self.site.defect
+        geo = base.copy()
+        geo.positions = base.positions + sum(p.positions - base.positions for p in parts)
         return geo
-
-    def _site_with(self, atoms):
-        # breathing and a distortion together: distort the breathed cell if the site allows it
-        rebuild = getattr(self.site, "with_defect", None)
-        return rebuild(atoms) if rebuild is not None else self.site
 
     def _swap(self):
         v = self.swap.value

@@ -187,7 +187,7 @@ class StructureView:
                                                                               style.SHELL_COLOURS[2])):
             if ix:
                 v.add_representation("ball+stick", selection=sel(ix), color=colour, radius=0.22, component=0)
-        v.add_representation("unitcell", component=0, color=style.MUTED)
+        v.add_representation("unitcell", component=0, color=style.MUTED, colorValue=style.MUTED)
         self.status.value = message_html(f"{len(keep)} of {len(self.atoms)} atoms shown", "info")
 
     # ---------------------------------------------------------- isosurface
