@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .pointgroup import operation_order
+from .pointgroup import operation_order, rotation_axis
 
 __all__ = ["representation", "rigid_patterns", "symmetry_adapted_modes"]
 
@@ -100,6 +100,51 @@ def _label(chars, dim, ops, orders):
     return letter + par
 
 
+def _principal_axis(ops, orders):
+    """Principal axis: a four-fold (C4 or S4) axis in cubic groups, else the highest-order proper axis."""
+    dets = np.linalg.det(ops)
+    cubic = np.count_nonzero((orders == 3) & (dets > 0)) >= 8
+    if cubic and np.any(orders == 4):
+        g = int(np.flatnonzero(orders == 4)[0])
+    elif cubic:
+        g = int(np.flatnonzero((orders == 2) & (dets > 0))[0])
+    else:
+        proper = np.flatnonzero(dets > 0)
+        g = int(proper[np.argmax(orders[proper])])
+        if orders[g] == 1:
+            return None
+    return rotation_axis(ops[g])
+
+
+def _axial_subgroup(ops, orders):
+    """Indices of the operations that map the principal axis onto ±itself."""
+    axis = _principal_axis(ops, orders)
+    if axis is None:
+        return np.arange(len(ops))
+    return np.flatnonzero(np.abs(np.abs(np.einsum("gij,j->gi", ops, axis) @ axis) - 1.0) < 1e-6)
+
+
+def _canonical_basis(b, dsub, rng):
+    """Basis of a block adapted to the axial subgroup: most symmetric patterns first, signs fixed.
+
+    Inside a degenerate block (E, T, ...) any rotation of the basis is as
+    good; reducing by the operations that keep the principal axis makes the
+    first pattern the one that keeps most of them (for Td and Oh: E.1 is the
+    tetragonal distortion along the four-fold axis, D2d or D4h).
+    """
+    dim = b.shape[1]
+    if dim > 1:
+        small = np.einsum("ik,gij,jl->gkl", b, dsub, b)  # the subgroup acting inside the block
+        a = rng.normal(size=(dim, dim))
+        w, vec = np.linalg.eigh((small @ (a + a.T) @ small.transpose(0, 2, 1)).sum(axis=0))
+        b = b @ vec
+        fixed = np.array([np.count_nonzero(np.abs(small @ vec[:, k] - vec[:, k]).max(axis=1) < 1e-6)
+                          for k in range(dim)])
+        b = b[:, np.argsort(-fixed, kind="stable")]
+    big = np.argmax(np.abs(b) > np.abs(b).max(axis=0) - 1e-9, axis=0)
+    return b * np.sign(b[big, np.arange(dim)])
+
+
 def symmetry_adapted_modes(vectors, operations, permutations, seed: int = 20261201):
     """Breathing pattern and irreducible blocks of internal first-shell displacements.
 
@@ -112,7 +157,9 @@ def symmetry_adapted_modes(vectors, operations, permutations, seed: int = 202612
     permutations : (nop, n) int
         How each operation permutes the shell atoms.
     seed : int
-        Seed of the generic symmetric matrix (fixes the basis inside blocks).
+        Seed of the generic symmetric matrices (results do not depend on it
+        except for the basis inside blocks that stay degenerate under the
+        operations keeping the principal axis).
 
     Returns
     -------
@@ -161,9 +208,10 @@ def symmetry_adapted_modes(vectors, operations, permutations, seed: int = 202612
     orders = np.array([operation_order(r) for r in ops])
     out, seen = [], {}
     labelled = []
+    axial = _axial_subgroup(ops, orders)
     for b in blocks:
         chars = np.einsum("ik,gik->g", b, dmat @ b)
-        labelled.append((_label(chars, b.shape[1], ops, orders), b))
+        labelled.append((_label(chars, b.shape[1], ops, orders), _canonical_basis(b, dmat[axial], rng)))
     labelled.sort(key=lambda t: (t[1].shape[1], t[0]))
     for lab, b in labelled:
         seen[lab] = seen.get(lab, 0) + 1

@@ -214,12 +214,19 @@ def _assign(frame, q, zd, zh, tolerance, forbid, species_penalty):
 
 
 def _robust_mean(disp):
-    """Mean of displacement vectors after dropping outliers (> 0.3 Å from the median)."""
+    """Mean of displacement vectors after dropping outliers.
+
+    Outliers are further from the median than max(0.02 Å, 3 × 1.4826 × the
+    median absolute deviation), capped at 0.3 Å (MAD as a robust spread:
+    F. R. Hampel, J. Am. Stat. Assoc. 69, 383 (1974)).
+    """
     d = disp[np.all(np.isfinite(disp), axis=1)]
     if len(d) == 0:
         return np.zeros(3)
     med = np.median(d, axis=0)
-    near = d[np.linalg.norm(d - med, axis=1) < 0.3]
+    dev = np.linalg.norm(d - med, axis=1)
+    cut = min(0.3, max(0.02, 3.0 * 1.4826 * float(np.median(dev))))
+    near = d[dev < cut]
     return near.mean(axis=0) if len(near) else med
 
 
@@ -271,9 +278,15 @@ def match_sites(host_cell, host_positions, host_numbers, defect_cell, defect_pos
         s, alt = _find_shift(frame, yd, zd, zh, radius, rng)
     else:
         s, alt = np.asarray(shift, float).reshape(3), np.zeros((0, 3))
-    for _ in range(2):  # assign, refine the shift from the matched atoms, assign again
+    for _ in range(2):  # assign, refine the shift from atoms away from the vacancies, assign again
         mapping, disp = _assign(frame, yd - s, zd, zh, tolerance, forbid, species_penalty)
-        ds = _robust_mean(disp)
+        present = np.zeros(len(xh), bool)
+        present[mapping[mapping >= 0]] = True
+        far = np.ones(len(yd), bool)
+        for v in np.flatnonzero(~present)[:16]:
+            near_v = np.linalg.norm(frame.mic(xh - xh[v]), axis=1) < 1.6 * dnn
+            far &= ~near_v[np.where(mapping >= 0, mapping, 0)] | (mapping < 0)
+        ds = _robust_mean(disp[far] if np.count_nonzero(far) >= 4 else disp)
         s = s + ds
         alt = alt + ds
         if np.linalg.norm(ds) < 1e-6:

@@ -13,9 +13,9 @@ from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-from ase.data import atomic_numbers
 
 from ..errors import GeometryError
+from . import edits
 from .distortions import symmetry_adapted_modes
 from .periodic import minimum_image
 
@@ -62,6 +62,12 @@ class Neighbour:
     radial_displacement: float
     tangential_displacement: float
     image: np.ndarray = field(default_factory=lambda: np.zeros(3, int))
+
+    def __post_init__(self):
+        for name in ("vector", "host_vector", "image"):
+            arr = np.array(getattr(self, name))
+            arr.flags.writeable = False
+            object.__setattr__(self, name, arr)
 
 
 @dataclass(frozen=True)
@@ -256,104 +262,47 @@ class VacancySite:
         return np.array(out, dtype=float)
 
     # ----------------------------------------------------------------- edits
-    def _edited(self, displacements: dict, note: str):
-        atoms = self.defect.copy()
-        pos = atoms.get_positions()
-        for idx, dv in displacements.items():
-            pos[idx] += dv
-        atoms.set_positions(pos)
-        atoms.info = dict(atoms.info)
-        atoms.info["orbtool_edit"] = tuple(atoms.info.get("orbtool_edit", ())) + (note,)
-        return atoms
-
-    def _shell_moves(self, shell: int, pattern) -> dict:
-        if not 1 <= shell <= len(self.shells):
-            raise GeometryError(f"shell must be between 1 and {len(self.shells)} (shells found), got {shell}")
-        moves: dict[int, np.ndarray] = {}
-        for nb, dv in zip(self.shells[shell - 1], pattern):
-            if nb.index in moves:
-                raise GeometryError(f"atom {nb.index} appears twice in shell {shell} (two periodic images): "
-                                    "the cell is too small to move the shell rigidly; use a larger supercell")
-            moves[nb.index] = np.asarray(dv, float)
-        return moves
-
+    # (implemented in orbtool.analysis.edits; each returns a new ase.Atoms)
     def scale_shell(self, factor: float, shell: int = 1):
-        """New Atoms with one shell's distances to the site multiplied by ``factor``.
-
-        Each atom of the shell moves along its site→atom vector:
-        r → factor · r (relaxed positions as the starting point).
-        """
-        factor = float(factor)
-        if not factor > 0:
-            raise GeometryError(f"scale factor must be positive, got {factor}")
-        vec = [nb.vector for nb in self.shells[shell - 1]] if 1 <= shell <= len(self.shells) else []
-        moves = self._shell_moves(shell, [(factor - 1.0) * v for v in vec])
-        return self._edited(moves, f"scale_shell({factor:g}, shell={shell})")
+        """New Atoms with one shell's distances to the site multiplied by ``factor`` (r → factor · r)."""
+        return edits.scale_shell(self, factor, shell)
 
     def breathe(self, fraction: float):
         """New Atoms with the first shell moved radially by ``fraction`` × its distance to the site.
 
         ``fraction = -0.05`` moves every first neighbour 5 % of its distance inward.
         """
-        fraction = float(fraction)
-        if not fraction > -1.0:
-            raise GeometryError(f"breathe fraction must be > -1 (atoms would cross the site), got {fraction}")
-        atoms = self.scale_shell(1.0 + fraction, shell=1)
-        atoms.info["orbtool_edit"] = atoms.info["orbtool_edit"][:-1] + (f"breathe({fraction:g})",)
-        return atoms
+        return edits.breathe(self, fraction)
 
     def distort(self, mode, amplitude: float):
         """New Atoms with the first shell displaced along a pattern.
 
-        Parameters
-        ----------
-        mode : str or (n_first, 3) array
-            A key of :meth:`distortion_modes` or an explicit pattern (normalised here).
-        amplitude : float, Å
-            Norm of the whole first-shell displacement (Σ_i |Δr_i|²)^½.
+        ``mode`` is a key of :meth:`distortion_modes` or an (n_first, 3) array
+        (normalised here); ``amplitude`` (Å) is the norm of the whole first-shell
+        displacement (Σ_i |Δr_i|²)^½.
         """
-        if isinstance(mode, str):
-            modes = self.distortion_modes()
-            if mode not in modes:
-                raise GeometryError(f"unknown distortion mode {mode!r}; this site has {sorted(modes)}")
-            pattern = modes[mode]
-        else:
-            pattern = np.asarray(mode, float)
-            if pattern.shape != (len(self.first_shell), 3):
-                raise GeometryError(f"a distortion pattern must have shape ({len(self.first_shell)}, 3) "
-                                    f"(one vector per first-shell atom), got {pattern.shape}")
-        norm = np.linalg.norm(pattern)
-        if not norm > 0:
-            raise GeometryError("a distortion pattern must not be all zero")
-        moves = self._shell_moves(1, float(amplitude) * pattern / norm)
-        label = mode if isinstance(mode, str) else "custom"
-        return self._edited(moves, f"distort({label}, {float(amplitude):g})")
+        return edits.distort(self, mode, amplitude)
 
     def swap_element(self, old: str, new: str, shell: int | None = None):
-        """New Atoms with every ``old`` atom replaced by ``new``.
+        """New Atoms with every ``old`` atom replaced by ``new`` (whole cell, or only shell ``shell``)."""
+        return edits.swap_element(self, old, new, shell)
 
-        ``shell=None`` swaps in the whole defect cell (a chemistry change of the
-        compound); ``shell=k`` only in neighbour shell k. Positions are kept.
+    def relaxed_subshells(self, shell: int = 1, gap: float = 0.05) -> tuple:
+        """The atoms of one (host) shell grouped by their relaxed distance to the site.
+
+        A pairing or Jahn–Teller distortion splits a shell (e.g. 4 → 2 + 2);
+        groups are separated where sorted relaxed distances jump by more than
+        ``gap`` Å, nearest group first.
         """
-        for el in (old, new):
-            if el not in atomic_numbers:
-                raise GeometryError(f"{el!r} is not a chemical symbol (expected e.g. 'Zn', 'O')")
-        symbols = list(self.defect.get_chemical_symbols())
-        if shell is None:
-            targets = [i for i, s in enumerate(symbols) if s == old]
-        else:
-            if not 1 <= shell <= len(self.shells):
-                raise GeometryError(f"shell must be between 1 and {len(self.shells)}, got {shell}")
-            targets = sorted({nb.index for nb in self.shells[shell - 1] if nb.element == old})
-        if not targets:
-            where = "the defect cell" if shell is None else f"shell {shell}"
-            there = set(symbols) if shell is None else {nb.element for nb in self.shells[shell - 1]}
-            raise GeometryError(f"no {old} atom in {where}; elements there: {sorted(there)}")
-        for i in targets:
-            symbols[i] = new
-        atoms = self._edited({}, f"swap_element({old}->{new}, shell={shell})")
-        atoms.set_chemical_symbols(symbols)
-        return atoms
+        if not 1 <= shell <= len(self.shells):
+            raise GeometryError(f"shell must be between 1 and {len(self.shells)}, got {shell}")
+        sh = self.shells[shell - 1]
+        if not sh:
+            return ()
+        d = np.array([nb.distance for nb in sh])
+        order = np.argsort(d, kind="stable")
+        cuts = np.flatnonzero(np.diff(d[order]) > gap) + 1
+        return tuple(tuple(sh[i] for i in grp) for grp in np.split(order, cuts))
 
     # --------------------------------------------------------------- summary
     def summary(self) -> str:
@@ -378,6 +327,7 @@ class VacancySite:
             d = np.mean([nb.distance for nb in sh])
             rad = np.mean([nb.radial_displacement for nb in sh])
             tan = np.mean([nb.tangential_displacement for nb in sh])
+            rad = round(float(rad), 3) + 0.0  # no "-0.000"
             lines.append(f"  {k:>5} {len(sh):>2}  {formula:<15} {hd:>10.3f}  {d:>13.3f}  {rad:>+10.3f}  {tan:>14.3f}")
         for m in self.other_vacancies:
             lines.append(f"  also missing: {m.element} (host atom {m.host_index})")
