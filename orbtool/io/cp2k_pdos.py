@@ -55,6 +55,8 @@ def _read_one(path):
     body = lines[2:]
     while body and not body[-1].strip():
         body.pop()
+    if not body:
+        raise InputFormatError(path, 3, "no orbital rows after the two header lines", field="orbital rows")
     data = table(body, path, 3, 3 + len(orbs), "orbital rows")
     return kind, fermi, orbs, data
 

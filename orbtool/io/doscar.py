@@ -21,7 +21,7 @@ import numpy as np
 from ..errors import InputFormatError
 from ..spectra import ProjectedDOS
 from ._files import read_text
-from ._numbers import table, to_float, to_int
+from ._numbers import floats, table, to_float, to_int
 
 __all__ = ["read_doscar", "find_structure_beside"]
 
@@ -58,6 +58,42 @@ def _layout(ncol: int, spin: bool, path, line):
     kind = "spin-polarised" if spin else "non-spin-polarised"
     raise InputFormatError(path, line, f"a per-atom block with {ncol} orbital columns does not fit a {kind} "
                            "DOSCAR (the total block decides the spin; mixed spin blocks?)", field="atom block")
+
+
+def _atom_block(lines, head, a, nedos, energies, path, width):
+    """Rows of atom ``a`` whose header line is ``lines[head]``, checked line by line."""
+    if len(lines[head].split()) < 4:
+        raise InputFormatError(path, head + 1, f"expected the header line of atom {a + 1}", field="atom block")
+    if head + 1 + nedos > len(lines):
+        raise InputFormatError(path, len(lines), f"file ended inside the block of atom {a + 1}", field="atom block")
+    nc = len(lines[head + 1].split())
+    if width is not None and nc != width:
+        raise InputFormatError(path, head + 2, f"atom {a + 1} block has {nc} columns, earlier atoms {width}",
+                               field="atom block")
+    block = table(lines[head + 1:head + 1 + nedos], path, head + 2, nc, f"atom {a + 1} DOS")
+    if not np.allclose(block[:, 0], energies, rtol=0, atol=1e-6 * max(1.0, float(np.abs(energies).max()))):
+        raise InputFormatError(path, head + 2, f"atom {a + 1} energies differ from the total DOS energies",
+                               field="atom block")
+    return block
+
+
+def _atom_blocks_fast(lines, pos, nions, nedos, energies, path):
+    """All atom blocks parsed in one call, or None if anything looks off (then the careful path runs)."""
+    end = pos + nions * (nedos + 1)
+    if end > len(lines) or any(len(lines[pos + a * (nedos + 1)].split()) < 4 for a in range(nions)):
+        return None
+    rows = [ln for a in range(nions) for ln in lines[pos + a * (nedos + 1) + 1:pos + (a + 1) * (nedos + 1)]]
+    width = len(rows[0].split())
+    try:
+        arr = floats(rows, path, pos + 2, "atom DOS")
+    except InputFormatError:
+        return None
+    if width < 2 or arr.size != len(rows) * width:
+        return None
+    arr = arr.reshape(nions, nedos, width)
+    if not np.allclose(arr[:, :, 0], energies, rtol=0, atol=1e-6 * max(1.0, float(np.abs(energies).max()))):
+        return None
+    return list(arr)
 
 
 def read_doscar(path, atoms=None) -> ProjectedDOS:
@@ -114,33 +150,24 @@ def read_doscar(path, atoms=None) -> ProjectedDOS:
     rest = [ln for ln in lines[pos:] if ln.strip()]
     layout = None
     if partial or rest:
-        for a in range(nions):
-            if pos >= len(lines):
-                raise InputFormatError(path, len(lines), f"file ended before the block of atom {a + 1} of {nions}",
-                                       field="atom block")
-            if len(lines[pos].split()) < 4:
-                raise InputFormatError(path, pos + 1, f"expected the header line of atom {a + 1}", field="atom block")
-            if pos + 1 + nedos > len(lines):
-                raise InputFormatError(path, len(lines), f"file ended inside the block of atom {a + 1}",
-                                       field="atom block")
-            nc = len(lines[pos + 1].split())
-            if layout is None:
-                layout = _layout(nc - 1, spin, path, pos + 2)
-                width = nc
-            elif nc != width:
-                raise InputFormatError(path, pos + 2, f"atom {a + 1} block has {nc} columns, earlier atoms {width}",
-                                       field="atom block")
-            block = table(lines[pos + 1:pos + 1 + nedos], path, pos + 2, width, f"atom {a + 1} DOS")
-            if not np.allclose(block[:, 0], energies, rtol=0, atol=1e-6 * max(1.0, float(np.abs(energies).max()))):
-                raise InputFormatError(path, pos + 2, f"atom {a + 1} energies differ from the total DOS energies",
-                                       field="atom block")
-            names, ns, comp = layout
+        blocks = _atom_blocks_fast(lines, pos, nions, nedos, energies, path)
+        if blocks is None:  # the careful path finds and names the problem
+            blocks = []
+            for a in range(nions):
+                if pos + a * (nedos + 1) >= len(lines):
+                    raise InputFormatError(path, len(lines), f"file ended before the block of atom {a + 1} of "
+                                           f"{nions}", field="atom block")
+                blocks.append(_atom_block(lines, pos + a * (nedos + 1), a, nedos, energies, path,
+                                          blocks[0].shape[1] if blocks else None))
+        layout = _layout(blocks[0].shape[1] - 1, spin, path, pos + 2)
+        names, ns, comp = layout
+        for a, block in enumerate(blocks):
             cols = block[:, 1:].reshape(nedos, len(names), comp * ns)
             for o, name in enumerate(names):
                 for s in range(ns):
                     channels.append((a, symbols[a] if symbols else "X", name, s))
                     values.append(cols[:, o, s * comp if comp == 4 else s])
-            pos += 1 + nedos
+        pos += nions * (nedos + 1)
         while pos < len(lines) and not lines[pos].strip():
             pos += 1
         if pos < len(lines):

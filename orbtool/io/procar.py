@@ -30,7 +30,7 @@ import numpy as np
 from ..errors import InputFormatError
 from ..spectra import BandProjections
 from ._files import read_text
-from ._numbers import table, to_float
+from ._numbers import floats, table, to_float
 
 __all__ = ["read_procar"]
 
@@ -74,6 +74,29 @@ def read_procar(path, atoms=None) -> BandProjections:
     lines = read_text(path).splitlines()
     if not lines or not lines[0].startswith("PROCAR"):
         raise InputFormatError(path, 1, "expected the first line to start with 'PROCAR'", field="header")
+    fast = _read_fast(lines, path)
+    spins, orbitals = fast if fast is not None else _read_careful(lines, path)
+    nspin = len(spins)
+    kp, kw = spins[0][0], spins[0][1]
+    if nspin == 2 and not np.allclose(spins[1][0], kp):
+        raise InputFormatError(path, None, "the two spin blocks have different k-points", field="k-point")
+    energies = np.stack([s[2] for s in spins])
+    occ = np.stack([s[3] for s in spins])
+    weights = np.stack([s[4] for s in spins])
+    if not kw.sum() > 0:
+        raise InputFormatError(path, None, "k-point weights sum to zero", field="k-point weight")
+    if atoms is None:
+        from .doscar import find_structure_beside
+        atoms, found = find_structure_beside(path)
+        if atoms is not None and len(atoms) != weights.shape[3]:
+            atoms = None
+    return BandProjections(kpoints=kp, kweights=kw, energies=energies, occupations=occ, weights=weights,
+                           orbitals=tuple(_ORB[o] for o in orbitals), atoms=atoms, fermi=None, source=str(path),
+                           meta={"format": "procar", "nspin": nspin})
+
+
+def _read_careful(lines, path):
+    """Line-by-line reader: slower, but it names the first line that breaks the layout."""
     cur = _Lines(lines, path)
     cur.i = 1
     spins = []
@@ -156,20 +179,71 @@ def read_procar(path, atoms=None) -> BandProjections:
                 while cur.i < len(lines) and not lines[cur.i].lstrip().startswith(("band", "k-point", "# of k-points")):
                     cur.i += 1
         spins.append((kp, kw, en, oc, wt))
-    nspin = len(spins)
-    kp, kw = spins[0][0], spins[0][1]
-    if nspin == 2 and not np.allclose(spins[1][0], kp):
-        raise InputFormatError(path, None, "the two spin blocks have different k-points", field="k-point")
-    energies = np.stack([s[2] for s in spins])
-    occ = np.stack([s[3] for s in spins])
-    weights = np.stack([s[4] for s in spins])
-    if not kw.sum() > 0:
-        raise InputFormatError(path, None, "k-point weights sum to zero", field="k-point weight")
-    if atoms is None:
-        from .doscar import find_structure_beside
-        atoms, found = find_structure_beside(path)
-        if atoms is not None and len(atoms) != weights.shape[3]:
-            atoms = None
-    return BandProjections(kpoints=kp, kweights=kw, energies=energies, occupations=occ, weights=weights,
-                           orbitals=tuple(_ORB[o] for o in orbitals), atoms=atoms, fermi=None, source=str(path),
-                           meta={"format": "procar", "nspin": nspin})
+    return spins, orbitals
+
+
+def _read_fast(lines, path):
+    """Every ion table parsed in one call; None if anything looks off (the careful reader then runs)."""
+    starts = [i for i, ln in enumerate(lines) if ln.startswith("# of k-points")]
+    if not 1 <= len(starts) <= 2:
+        return None
+    bounds = starts + [len(lines)]
+    spins, orbitals, dims = [], None, None
+    for sb in range(len(starts)):
+        m = _COUNTS.search(lines[starts[sb]])
+        if m is None:
+            return None
+        nk, nb, nat = (int(g) for g in m.groups())
+        if min(nk, nb, nat) < 1 or (dims is not None and dims != (nk, nb, nat)):
+            return None
+        dims = (nk, nb, nat)
+        seg = range(starts[sb] + 1, bounds[sb + 1])
+        kl = [i for i in seg if lines[i].lstrip().startswith("k-point")]
+        bl = [i for i in seg if lines[i].startswith("band")]
+        if len(kl) != nk or len(bl) != nk * nb:
+            return None
+        if np.any(np.diff(np.searchsorted(bl, kl + [bounds[sb + 1]])) != nb):
+            return None
+        kp, kw = np.empty((nk, 3)), np.empty(nk)
+        for k, i in enumerate(kl):
+            km = _KPT.match(lines[i])
+            coords = _FLOAT.findall(km.group(2)) if km else []
+            if km is None or int(km.group(1)) != k + 1 or len(coords) != 3:
+                return None
+            kp[k] = [float(c) for c in coords]
+            kw[k] = float(km.group(3))
+        en, oc = np.empty(nk * nb), np.empty(nk * nb)
+        rows = []
+        for j, i in enumerate(bl):
+            bm = _BAND.match(lines[i])
+            if bm is None or int(bm.group(1)) != j % nb + 1:
+                return None
+            try:
+                en[j], oc[j] = float(bm.group(2)), float(bm.group(3))
+            except ValueError:
+                return None
+            h = i + 1
+            while h < len(lines) and not lines[h].strip():
+                h += 1
+            head = lines[h].split() if h < len(lines) else []
+            if len(head) < 3 or head[0] != "ion" or head[-1] != "tot":
+                return None
+            if orbitals is None:
+                orbitals = head[1:-1]
+                if any(o not in _ORB for o in orbitals):
+                    return None
+            elif head[1:-1] != orbitals:
+                return None
+            rows.extend(lines[h + 1:h + 1 + nat])
+        ncol = len(orbitals) + 2
+        try:
+            arr = floats(rows, path, 1, "ion tables")
+        except InputFormatError:
+            return None
+        if arr.size != len(rows) * ncol or not (np.isfinite(en).all() and np.isfinite(oc).all()):
+            return None
+        arr = arr.reshape(nk, nb, nat, ncol)
+        if not np.array_equal(arr[..., 0], np.broadcast_to(np.arange(1, nat + 1), (nk, nb, nat))):
+            return None
+        spins.append((kp, kw, en.reshape(nk, nb), oc.reshape(nk, nb), arr[..., 1:-1]))
+    return spins, orbitals
