@@ -5,7 +5,7 @@ from __future__ import annotations
 from . import scenario as sc
 from . import tbmodel
 
-__all__ = ["atom_energy", "family_toml", "readme_text"]
+__all__ = ["atom_energy", "family_toml", "readme_text", "transition_levels"]
 
 
 def atom_energy(symbol: str) -> float:
@@ -16,6 +16,33 @@ def atom_energy(symbol: str) -> float:
 
 def _host_spec(name):
     return next(h for h in sc.HOSTS if h.name == name)
+
+
+def _defect_label(c: dict) -> str:
+    """Groups the charge states of one defect; fixed-geometry variants get their own group."""
+    base = f"{c['host']}_{c['defect']}"
+    return base if c["variant"] == "relaxed" else f"{base}_{c['variant']}"
+
+
+def transition_levels(summary: dict) -> list[tuple[str, int, int, float]]:
+    """Model transition levels ε(q/q') above the host VBM (eV) from the E0 values.
+
+    ε(q/q') = [E_f(q; E_F=0) - E_f(q'; E_F=0)] / (q' - q) with E_f(q) = E0[q] - E0[host] + μ + q E_VBM
+    (C. Freysoldt et al., Rev. Mod. Phys. 86, 253 (2014)); μ and E0[host] cancel.
+    """
+    hosts = {h["name"]: h for h in summary["hosts"]}
+    groups: dict = {}
+    for c in summary["cases"]:
+        groups.setdefault(_defect_label(c), []).append(c)
+    out = []
+    for label, cs in groups.items():
+        if len(cs) != 2:
+            continue
+        a, b = sorted(cs, key=lambda c: -c["charge"])
+        vbm = hosts[a["host"]]["vbm"]
+        ef = lambda c: c["energies"]["E0"] + c["charge"] * vbm
+        out.append((label, a["charge"], b["charge"], (ef(a) - ef(b)) / (b["charge"] - a["charge"])))
+    return out
 
 
 def family_toml(summary: dict) -> str:
@@ -55,7 +82,7 @@ def family_toml(summary: dict) -> str:
                   f'charge = {c["charge"]}',
                   f'description = "MODEL DATA: {c["defect"]} in {spec.note}; {how} {c["breathing"]:+.4f}"',
                   f'motif = "{spec.motif}"', f'cation = "{spec.cation}"', f'anion = "{spec.anion}"',
-                  f'vacancy = "{c["kind"]}"', f'defect = "{c["host"]}_{c["defect"]}"', f'variant = "{c["variant"]}"',
+                  f'vacancy = "{c["kind"]}"', f'defect = "{_defect_label(c)}"', f'variant = "{c["variant"]}"',
                   ""]
     return "\n".join(lines)
 
@@ -131,14 +158,19 @@ def readme_text(summary: dict) -> str:
                     f"{'yes' if c['state_in_gap'] else 'no'} | {c['energies']['E0']:.4f} |")
     edges = "\n".join(f"* `{h['name']}`: VBM {h['vbm']:.3f} eV, CBM {h['cbm']:.3f} eV, "
                       f"gap {h['cbm'] - h['vbm']:.3f} eV, E0 {h['energies']['E0']:.4f} eV" for h in summary["hosts"])
+    levels = "\n".join(f"* `{lab}`: ε({qa:+d}/{qb:+d}) = {e:.3f} eV above the VBM"
+                       for lab, qa, qb, e in transition_levels(summary))
     tail = """
 
 Hosts:
 {edges}
+
+Transition levels implied by the model energies (for cross-checking the pipeline):
+{levels}
 
 ## Formation energies
 Within the model, E_f(q) = E0[defect, q] − E0[host] + μ_removed + q (E_F + E_VBM), with μ the model's
 free-atom energies (`[references] mu` in family.toml). The model has no long-range electrostatics: no
 charged-cell correction applies.
 """
-    return head + "\n".join(rows) + tail.format(edges=edges)
+    return head + "\n".join(rows) + tail.format(edges=edges, levels=levels)

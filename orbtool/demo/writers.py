@@ -29,7 +29,7 @@ def write_text(path, text: str) -> None:
     data = text.encode("ascii")
     if path.suffix == ".gz":
         with open(path, "wb") as raw, gzip.GzipFile(filename="", mode="wb", fileobj=raw, mtime=0,
-                                                    compresslevel=9) as gz:
+                                                    compresslevel=6) as gz:
             gz.write(data)
     else:
         path.write_bytes(data)
@@ -86,10 +86,13 @@ def write_doscar(path, atoms, eps, weights, proj, egrid, sigma, fermi, system: s
     out = io.StringIO()
     out.write("\n".join(head) + "\n" + eline + "\n")
     np.savetxt(out, np.column_stack([egrid, total, integ]), fmt=["%11.3f", "%11.4E", "%11.4E"], delimiter=" ")
-    zeros = np.zeros((len(egrid), 5))
+    ne = len(egrid)
+    rows = np.column_stack([np.tile(egrid, n), part.reshape(n * ne, 4), np.zeros((n * ne, 5))])
+    buf = io.StringIO()
+    np.savetxt(buf, rows, fmt=["%11.3f"] + ["%11.4E"] * 9, delimiter=" ")      # one call, then split per atom
+    lines = buf.getvalue().splitlines()
     for a in range(n):
-        out.write(eline + "\n")
-        np.savetxt(out, np.column_stack([egrid, part[a], zeros]), fmt=["%11.3f"] + ["%11.4E"] * 9, delimiter=" ")
+        out.write(eline + "\n" + "\n".join(lines[a * ne:(a + 1) * ne]) + "\n")
     write_text(path, out.getvalue())
 
 
@@ -107,15 +110,18 @@ def write_procar(path, kpoints, kweights, eps, occ, proj) -> None:
     for ik in range(nk):
         k = kpoints[ik]
         out.write(f" k-point {ik + 1:4d} :    {k[0]:.8f} {k[1]:.8f} {k[2]:.8f}     weight = {kweights[ik]:.8f}\n\n")
+        p = proj[ik][:, :, PLANEWAVE_ORDER]                                   # (nb, nat, 4)
+        table = np.concatenate([p, np.zeros((nb, nat, 5)), p.sum(axis=2, keepdims=True)], axis=2)
+        rows = np.column_stack([np.tile(ions, nb), table.reshape(nb * nat, 10)])
+        buf = io.StringIO()
+        np.savetxt(buf, rows, fmt=["%5d"] + ["%6.3f"] * 10, delimiter=" ")  # one call per k point
+        lines = buf.getvalue().splitlines()
+        buf = io.StringIO()
+        np.savetxt(buf, table.sum(axis=1), fmt="%6.3f", delimiter=" ")
+        tots = buf.getvalue().splitlines()
         for ib in range(nb):
-            p = proj[ik, ib][:, PLANEWAVE_ORDER]
-            table = np.column_stack([p, np.zeros((nat, 5)), p.sum(axis=1)])
             out.write(f"band {ib + 1:4d} # energy {eps[ik, ib]:14.8f} # occ. {occ[ik, ib]:12.8f}\n\n")
-            out.write(cols)
-            rows = np.column_stack([ions, table])
-            np.savetxt(out, rows, fmt=["%5d"] + ["%6.3f"] * 10, delimiter=" ")
-            tot = table.sum(axis=0)
-            out.write("tot  " + "".join(f" {v:6.3f}" for v in tot) + "\n\n")
+            out.write(cols + "\n".join(lines[ib * nat:(ib + 1) * nat]) + "\ntot   " + tots[ib] + "\n\n")
         out.write("\n")
     write_text(path, out.getvalue())
 
