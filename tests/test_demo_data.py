@@ -62,7 +62,7 @@ def test_every_run_folder_has_its_files_and_poscar_parses_with_ase():
             assert (folder / name).is_file(), folder / name
         at = read(folder / "POSCAR", format="vasp")
         host = hosts[c["host"]]
-        removed = c["defect"].split("_V_")[-1]
+        removed = c["anion"] if c["vacancy"] == "V_anion" else c["cation"]
         assert len(at) == 63
         hs, ds = host.get_chemical_symbols(), at.get_chemical_symbols()
         assert ds.count(removed) == hs.count(removed) - 1
