@@ -120,3 +120,24 @@ def test_predict_and_inverse(family):
         assert lv <= 0.1 + 1e-3 or 1.2 - lv <= 0.1 + 1e-3
     text = res.explain(case="c3")
     assert "above the VBM" in text and "breathing" in text
+
+
+def test_targets_from_duck_typed_state(family):
+    # Definitions used by orbtool (common practice for PDOS-derived characters): s fraction = s/(s+p),
+    # first-shell fraction = f1/(f1+f2), gap = CBM − VBM of the state's band edges.
+    from types import SimpleNamespace
+
+    from orbtool.tb import targets_from_case
+
+    model, sites, truth = family
+    edges = SimpleNamespace(vbm=1.0, cbm=2.1, gap=1.1)
+    state = SimpleNamespace(above_vbm=0.35, below_cbm=0.75, orbital_weights={"s": 0.1, "p": 0.3, "d": 0.6},
+                            shell_fractions={1: 0.45, 2: 0.15, "rest": 0.4}, edges=edges)
+    case = SimpleNamespace(name="v", labels={"cation": "Si"}, charge=-1)
+    (t,) = targets_from_case(case, site=sites[3], state=state)
+    assert t.above_vbm == 0.35 and t.gap == 1.1 and t.charge == -1
+    assert t.s_fraction == pytest.approx(0.25) and t.shell1 == pytest.approx(0.75)
+    res = fit(model, [t], free=["vbm"])
+    # charge −1 adds an electron to the Si vacancy's defect molecule: 5 electrons, still the t2 level
+    assert res.problem.models["v"].electrons == pytest.approx(5.0)
+    assert res.predict().level == pytest.approx(0.35, abs=1e-6)
