@@ -24,6 +24,7 @@ import json
 import os
 import tempfile
 import zipfile
+import zlib
 from pathlib import Path
 from typing import Any
 
@@ -204,6 +205,25 @@ def save_session(path, content: Any = None, *, overwrite: bool = False, **items)
     return path
 
 
+def _load_npy(z: zipfile.ZipFile, name: str, path: Path) -> np.ndarray:
+    """One ``.npy`` member, refusing sizes the archive cannot hold before anything is allocated
+    (numpy allocates the declared shape before reading the data)."""
+    info = z.getinfo(name)
+    if info.file_size > 1500 * max(info.compress_size, 1) + 4096:  # beyond deflate's ~1000:1
+        raise SessionError(f"{path}: array {name} claims {info.file_size:,d} bytes from "
+                           f"{info.compress_size:,d} compressed (damaged or hostile file)")
+    fh = io.BytesIO(z.read(name))
+    version = np.lib.format.read_magic(fh)
+    read = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
+    shape, _, dtype = read(fh)
+    need = int(np.prod([int(n) for n in shape], dtype=object)) * dtype.itemsize
+    if need > len(fh.getvalue()):
+        raise SessionError(f"{path}: array {name} declares shape {shape} ({need:,d} bytes) but holds "
+                           f"{len(fh.getvalue()):,d} bytes (damaged file)")
+    fh.seek(0)
+    return np.load(fh, allow_pickle=False)
+
+
 def load_session(path) -> Any:
     """Read a session written by :func:`save_session` and return its content.
 
@@ -230,11 +250,14 @@ def load_session(path) -> Any:
             arrays = {}
             for name in z.namelist():
                 if name.startswith("arrays/") and name.endswith(".npy"):
-                    arrays[int(name[7:-4])] = np.load(io.BytesIO(z.read(name)), allow_pickle=False)
+                    arrays[int(name[7:-4])] = _load_npy(z, name, path)
     except FileNotFoundError:
         raise SessionError(f"{path}: no such session file") from None
-    except (zipfile.BadZipFile, KeyError, ValueError, json.JSONDecodeError) as exc:
-        raise SessionError(f"{path}: damaged or not a session file ({exc})") from None
+    except (zipfile.BadZipFile, KeyError, ValueError, json.JSONDecodeError, OSError, EOFError, zlib.error,
+            NotImplementedError, RuntimeError) as exc:
+        # OSError: offsets pointing outside the file; NotImplementedError/RuntimeError: unknown
+        # compression or an encrypted member; zlib.error/EOFError: damaged deflate data
+        raise SessionError(f"{path}: damaged or not a session file ({type(exc).__name__}: {exc})") from None
     try:
         return _decode(doc["content"], arrays)
     except (KeyError, IndexError, TypeError, AttributeError, ValueError) as exc:
