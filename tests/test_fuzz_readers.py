@@ -12,11 +12,13 @@ and calls the public reader on it. The contract checked (issue 10, "Reliability"
 * the peak of traced allocations (numpy reports its buffers to :mod:`tracemalloc`) stays under
   ``MEMORY_LIMIT``: declared sizes must be checked against the file length before allocating.
 
-Example budgets are fixed (``derandomize=True``) so CI time is bounded and failures reproduce.
+Example budgets are fixed and examples derandomized so CI time is bounded and failures reproduce
+(``ORBTOOL_FUZZ_EXAMPLES``, ``ORBTOOL_FUZZ_RANDOM=1`` for a longer, exploring run).
 """
 
 from __future__ import annotations
 
+import os
 import shutil
 import tempfile
 import tracemalloc
@@ -34,7 +36,10 @@ FIX = Path(__file__).parent / "fixtures" / "io"
 #: largest traced allocation peak accepted for a reader on a file of a few kB (common practice: a
 #: reader may hold a few copies of its data; 64 MB is far above that and far below a "lying" size)
 MEMORY_LIMIT = 64 * 2 ** 20
-EXAMPLES = 30
+#: examples per reader; fixed for CI, raise it for a deeper search (ORBTOOL_FUZZ_EXAMPLES=2000)
+EXAMPLES = int(os.environ.get("ORBTOOL_FUZZ_EXAMPLES", "40"))
+#: derandomized in CI (reproducible); ORBTOOL_FUZZ_RANDOM=1 explores new examples each run
+DERANDOMIZE = os.environ.get("ORBTOOL_FUZZ_RANDOM", "") == ""
 
 _WORK = Path(tempfile.mkdtemp(prefix="orbtool-fuzz-"))
 
@@ -147,6 +152,19 @@ SOURCES = {
     "outcar": (lambda: (FIX / "vasp_nospin" / "OUTCAR").read_bytes(), "OUTCAR", lambda p: orbtool.io.read_energy(p)),
     "oszicar": (lambda: (FIX / "vasp_spin" / "OSZICAR").read_bytes(), "OSZICAR", lambda p: orbtool.io.read_energy(p)),
 }
+def _session_bytes() -> bytes:
+    from ase.build import bulk
+
+    from orbtool.grid import Grid
+    atoms = bulk("Si", cubic=True)
+    grid = Grid(values=np.random.default_rng(5).random((2, 3, 4)), cell=atoms.cell.array, atoms=atoms)
+    return _ase_file("s.orbsession", lambda f: orbtool.save_session(
+        f, {"grid": grid, "pair": (1, 2.5), "keys": {1: "a"}, "x": np.arange(5.0), "nan": float("nan")}))
+
+
+
+
+SOURCES["session"] = (_session_bytes, "s.orbsession", lambda p: orbtool.load_session(p))
 _VALID: dict[str, bytes] = {}
 
 
@@ -256,7 +274,7 @@ def test_valid_source_reads(kind):
 
 
 @pytest.mark.parametrize("kind", sorted(SOURCES))
-@settings(max_examples=EXAMPLES, deadline=3000, derandomize=True, database=None,
+@settings(max_examples=EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(ops=mutations)
 def test_fuzz_reader_raises_only_orbtool_errors(kind, ops):
@@ -272,7 +290,7 @@ def test_fuzz_reader_raises_only_orbtool_errors(kind, ops):
 
 @pytest.mark.parametrize("kind", ["cube", "xsf", "chgcar", "doscar", "procar", "orbtool-projections", "npz",
                                   "cp2k-pdos"])
-@settings(max_examples=15, deadline=3000, derandomize=True, database=None,
+@settings(max_examples=EXAMPLES // 2, deadline=3000, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(which=st.integers(0, 40), huge=st.sampled_from(HUGE))
 def test_fuzz_huge_declared_size(kind, which, huge):
@@ -332,7 +350,7 @@ _RUN = {"POSCAR": FIX / "vasp_spin" / "POSCAR", "DOSCAR": FIX / "vasp_spin" / "D
         "PROCAR": FIX / "vasp_spin" / "PROCAR", "OSZICAR": FIX / "vasp_spin" / "OSZICAR"}
 
 
-@settings(max_examples=EXAMPLES, deadline=3000, derandomize=True, database=None,
+@settings(max_examples=EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(which=st.sampled_from(sorted(_RUN)), ops=mutations)
 def test_fuzz_load_case(which, ops):
@@ -343,5 +361,32 @@ def test_fuzz_load_case(which, ops):
         (d / name).write_bytes(mutate(data, ops) if name == which else data)
     try:
         check_reader(lambda p: orbtool.load_case(p, grids=False), d)
+    finally:
+        shutil.rmtree(d, ignore_errors=True)
+
+
+# ------------------------------------------------------------------ sessions (damaged, hostile)
+
+
+def _rezip(data: bytes, edit) -> bytes:
+    import io
+    import zipfile
+    out = io.BytesIO()
+    with zipfile.ZipFile(io.BytesIO(data)) as zin, zipfile.ZipFile(out, "w") as zout:
+        for name in zin.namelist():
+            zout.writestr(name, edit(name, zin.read(name)))
+    return out.getvalue()
+
+
+@settings(max_examples=EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(ops=mutations, member=st.sampled_from(["session.json", "arrays/0.npy", "arrays/3.npy"]))
+def test_fuzz_session_members(ops, member):
+    """Damage inside a well-formed archive (valid CRCs): the JSON tree or a .npy member."""
+    data = _rezip(_valid("session"), lambda name, raw: mutate(raw, ops) if name == member else raw)
+    d = Path(tempfile.mkdtemp(dir=_WORK))
+    (d / "s.orbsession").write_bytes(data)
+    try:
+        check_reader(orbtool.load_session, d / "s.orbsession")
     finally:
         shutil.rmtree(d, ignore_errors=True)

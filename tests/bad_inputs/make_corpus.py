@@ -25,6 +25,11 @@ from ase.io import write
 HERE = Path(__file__).parent
 FIX = HERE.parent / "fixtures" / "io"
 RNG = np.random.default_rng(20261201)
+STAMP = (2026, 12, 1, 0, 0, 0)  # fixed archive member times: reproducible bytes
+
+
+def _zip_write(z: zipfile.ZipFile, name: str, raw: bytes):
+    z.writestr(zipfile.ZipInfo(name, date_time=STAMP), raw)
 
 
 def _text(path: Path, text: str):
@@ -60,6 +65,7 @@ def _first_token(line: str, new: str) -> str:
 def grids():
     si = bulk("Si", cubic=True)
     cube = _ase("x.cube", lambda f: write(f, si, data=RNG.random((3, 4, 5))))
+    cube = re.sub(r"written on [^\n]*", "written for the orbtool corpus", cube, count=1)  # no clock time
     lines = cube.splitlines()
     first_value = 6 + len(si) + 1
     cut = int(RNG.integers(len("\n".join(lines[:first_value])) + 5, len(cube) - 20))
@@ -158,13 +164,13 @@ def native():
             raw = zin.read(name)
             if name == "weights.npy":  # header (NumPy NEP 1) declares 10^10 spins; the data stay small
                 raw = re.sub(rb"'shape': \(\d+,", b"'shape': (10000000000,", raw, count=1)
-            zout.writestr(name, raw)
+            _zip_write(zout, name, raw)
     _bytes(HERE / "proj" / "lying_shape.npz", out.getvalue())
     out = io.BytesIO()
     with zipfile.ZipFile(out, "w") as z:
         buf = io.BytesIO()
         np.save(buf, np.arange(3.0))
-        z.writestr("values.npy", buf.getvalue())
+        _zip_write(z, "values.npy", buf.getvalue())
     _bytes(HERE / "proj" / "foreign.npz", out.getvalue())
 
 
@@ -238,25 +244,28 @@ def sessions():
     s.mkdir(exist_ok=True)
     good = s / ".good.orbsession"
     orbtool.save_session(good, {"x": np.arange(4.0), "label": "v"})
-    data = good.read_bytes()
-    good.unlink()
-    _bytes(s / "truncated.orbsession", data[:int(RNG.integers(40, len(data) - 40))])
-    _bytes(s / "garbage.orbsession", RNG.integers(0, 256, 700, dtype=np.uint8).tobytes())
-    with zipfile.ZipFile(io.BytesIO(data)) as z:
+    with zipfile.ZipFile(good) as z:
         doc = json.loads(z.read("session.json"))
         arrays = {n: z.read(n) for n in z.namelist() if n.startswith("arrays/")}
+    good.unlink()
+    doc["created"] = "2026-12-01T00:00:00+00:00"
 
-    def rezip(name, doc, arrays):
+    def rezip(doc, arrays) -> bytes:
         out = io.BytesIO()
         with zipfile.ZipFile(out, "w") as z:
-            z.writestr("session.json", json.dumps(doc))
+            _zip_write(z, "session.json", json.dumps(doc).encode())
             for n, raw in arrays.items():
-                z.writestr(n, raw)
-        _bytes(s / name, out.getvalue())
-    rezip("newer_schema.orbsession", {**doc, "schema": 99, "orbtool": "9.0"}, arrays)
-    rezip("array_missing.orbsession", doc, {})
-    rezip("no_content.orbsession", {k: v for k, v in doc.items() if k != "content"}, arrays)
-    rezip("wrong_format.orbsession", {**doc, "format": "something-else"}, arrays)
+                _zip_write(z, n, raw)
+        return out.getvalue()
+    data = rezip(doc, arrays)
+    _bytes(s / "truncated.orbsession", data[:int(RNG.integers(40, len(data) - 40))])
+    _bytes(s / "garbage.orbsession", RNG.integers(0, 256, 700, dtype=np.uint8).tobytes())
+    _bytes(s / "newer_schema.orbsession", rezip({**doc, "schema": 99, "orbtool": "9.0"}, arrays))
+    _bytes(s / "array_missing.orbsession", rezip(doc, {}))
+    _bytes(s / "no_content.orbsession", rezip({k: v for k, v in doc.items() if k != "content"}, arrays))
+    _bytes(s / "wrong_format.orbsession", rezip({**doc, "format": "something-else"}, arrays))
+    lying = {n: re.sub(rb"'shape': \(\d+,", b"'shape': (100000000000,", raw, count=1) for n, raw in arrays.items()}
+    _bytes(s / "lying_shape.orbsession", rezip(doc, lying))
 
 
 if __name__ == "__main__":
