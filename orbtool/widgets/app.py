@@ -61,6 +61,9 @@ class App:
     fit : FitResult, optional
         Model for the level explorer (default: fitted per case, or shared
         across the family).
+    analysis : FamilyAnalysis, optional
+        An :func:`orbtool.family.analyze_family` result for the family given
+        (saves analysing it again).
 
     Attributes
     ----------
@@ -69,9 +72,10 @@ class App:
     structure, pdos, levels, board : the component views (None when not available).
     """
 
-    def __init__(self, case_or_family=None, *, fit=None):
+    def __init__(self, case_or_family=None, *, fit=None, analysis=None):
         ensure_bokeh()
         self.fit = fit
+        self._given_analysis = analysis
         self.family = self.family_analysis = None
         self.case = self.analysis = None
         self.structure = self.pdos = self.levels = self.board = None
@@ -111,7 +115,9 @@ class App:
         from ..family import analyze_family
         from .family import FamilyBoard, board_rows
 
-        fa = analyze_family(family, workers=1, progress=False)
+        fa = self._given_analysis
+        if fa is None or getattr(fa, "family", None) is not family:
+            fa = analyze_family(family, workers=1, progress=False)
         self.family, self.family_analysis = family, fa
         if self.fit is None:
             fit, err = attempt(fa.shared_fit)
