@@ -240,7 +240,8 @@ def _read_fast(lines, path):
             arr = floats(rows, path, 1, "ion tables")
         except InputFormatError:
             return None
-        if arr.size != len(rows) * ncol or not (np.isfinite(en).all() and np.isfinite(oc).all()):
+        if len(rows) != nk * nb * nat or arr.size != len(rows) * ncol or \
+                not (np.isfinite(en).all() and np.isfinite(oc).all()):
             return None
         arr = arr.reshape(nk, nb, nat, ncol)
         if not np.array_equal(arr[..., 0], np.broadcast_to(np.arange(1, nat + 1), (nk, nb, nat))):
