@@ -88,7 +88,8 @@ def fit(model, targets, *, free=None, fixed=None, bounds=None, per_case=(), init
     if auto_free:  # in order of priority; trimmed below to what the data can fix
         free = ["vbm"] + (["s_fraction"] if model.orbitals == "hybrid" and has_char else []) + ["coupling_scale"]
     free = list(free)
-    unknown = [n for n in list(free) + list(fixed or {}) + list(per_case) if n not in specs and n != "vbm"]
+    unknown = [n for n in list(free) + list(fixed or {}) + list(per_case)
+               if n.split("@")[0] not in specs and n.split("@")[0] != "vbm"]
     if unknown:
         raise FitError(f"unknown parameter(s) {unknown}; this model has {sorted(specs) + ['vbm']}")
     # starting value of vbm: put the first case's defect level where its target says
@@ -110,8 +111,9 @@ def fit(model, targets, *, free=None, fixed=None, bounds=None, per_case=(), init
         if not lo <= val <= hi:
             raise FitError(f"parameter {name}: value {val} outside its bounds [{lo}, {hi}]")
         names = [f"{name}@{c}" for c in cases] if name in per_case else [name]
-        for nm in names:
-            params.append(FitParameter(nm, float(val), lo, hi, name in free, unit, doc))
+        for nm in names:  # a per-case copy may be fixed or freed by its full name "<name>@<case>"
+            v = float((fixed or {}).get(nm, (initial or {}).get(nm, val)))
+            params.append(FitParameter(nm, v, lo, hi, name in free or nm in free, unit, doc))
     prob = _Problem(models, targets, params, use)
     n_res = prob.residuals(np.array([p.value for p in params])).shape[1]
     if auto_free and sum(p.free for p in params) > n_res:
@@ -188,6 +190,7 @@ class FitResult:
     message: str
     bounds: dict
     problem: object = field(repr=False, default=None)
+    notes: list = field(default_factory=list)
     _cache: dict = field(repr=False, default_factory=dict)
 
     @classmethod
@@ -210,8 +213,14 @@ class FitResult:
         cutoff = 1e-10 * smax
         inv_s2 = np.where(s > cutoff, 1.0 / np.where(s > cutoff, s, 1.0) ** 2, 0.0)
         cov = (Vt.T * inv_s2) @ Vt * np.outer(span, span)
+        notes = []
         if not absolute_sigma and dof > 0:
             cov = cov * chi2 / dof
+            if chi2 / dof < 1e-8:
+                notes.append("the model reproduces the targets exactly, so χ²-scaled uncertainties vanish; "
+                             "refit with absolute_sigma=True to use the targets' σ")
+        elif dof <= 0:
+            notes.append("no degrees of freedom left: uncertainties come from the targets' σ alone")
         sig = np.sqrt(np.clip(np.diag(cov), 0, None))
         with np.errstate(invalid="ignore", divide="ignore"):
             corr = cov / np.outer(sig, sig)
@@ -225,7 +234,8 @@ class FitResult:
                    free=[params[i].name for i in free_idx], sigma=sig, covariance=cov, correlation=corr,
                    chi2=chi2, dof=int(dof), aic=chi2 + 2 * k, bic=chi2 + k * np.log(max(n, 1)), residuals=r,
                    singular_values=s, weak_directions=weak, at_bounds=at, success=bool(sol.success),
-                   message=str(sol.message), bounds={p.name: (p.lower, p.upper) for p in params}, problem=prob)
+                   message=str(sol.message), bounds={p.name: (p.lower, p.upper) for p in params}, problem=prob,
+                   notes=notes)
 
     # ------------------------------------------------------------------ access
     @property
@@ -267,6 +277,7 @@ class FitResult:
         if self.at_bounds:
             lines.append(f"  warning: {', '.join(self.at_bounds)} stopped at a bound; "
                          "its uncertainty is not reliable")
+        lines += [f"  note: {n}" for n in self.notes]
         return "\n".join(lines)
 
     def to_dict(self) -> dict:
@@ -276,7 +287,7 @@ class FitResult:
                 "correlation": np.nan_to_num(self.correlation).tolist(), "chi2": self.chi2, "dof": self.dof,
                 "aic": float(self.aic), "bic": float(self.bic), "at_bounds": list(self.at_bounds),
                 "weak_directions": [{"singular_value": s, "combination": c} for s, c in self.weak_directions],
-                "success": self.success, "message": self.message,
+                "success": self.success, "message": self.message, "notes": list(self.notes),
                 "bounds": {k: list(v) for k, v in self.bounds.items()},
                 "cases": list(self.problem.by_case)}
 
