@@ -141,3 +141,19 @@ def test_targets_from_duck_typed_state(family):
     # charge −1 adds an electron to the Si vacancy's defect molecule: 5 electrons, still the t2 level
     assert res.problem.models["v"].electrons == pytest.approx(5.0)
     assert res.predict().level == pytest.approx(0.35, abs=1e-6)
+
+
+def test_full_cluster_fit_and_knobs():
+    # sp valence cluster (first + second shell) of the Si vacancy: the dangling level transforms as
+    # a1 and/or t2 of Td (Coulson & Kearsley 1957; four dangling hybrids span a1 + t2).
+    site = make_site()
+    m = ClusterModel.around(site, "sp")
+    t = [Target("si", above_vbm=0.3, shell1=0.6, gap=1.1)]
+    res = fit(m, t, free=["vbm"])
+    p = res.predict(geometry=breathe(site, -0.03).defect)
+    assert set(p.character["label"].split("+")) <= {"a1", "t2"}
+    assert 0 < p.character["dangling"] <= 1 and abs(p.character["s"] + p.character["p"] - 1) < 1e-9
+    lv = res.scan(coupling_scale=np.array([1.0, 1.2]))
+    assert lv.shape == (2,) and np.all(np.isfinite(lv))
+    assert "above the VBM" in res.explain()
+    assert any(c.knob == "onsite_shift" and c.reached for c in res.smallest_change_to_shallow(within=0.1))
