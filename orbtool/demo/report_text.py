@@ -137,6 +137,17 @@ unrelaxed breathing variants, first shell at 0.95 and 1.05 of the host distance 
 `family.toml` (manifest, see docs/manifest.md) lists hosts and cases; `model_summary.json` holds
 the numbers below and more.
 
+## What the model gives (read before interpreting)
+* Anion vacancies (V_S) have a deep a1-like level well inside the gap, built from the dangling
+  orbitals of the first-shell cations; its position moves with the first-shell breathing (compare the
+  `breathe-5` / relaxed / `breathe+5` rows), with the cation (Sn → Ge) and with the motif.
+* Cation vacancies are shallow in this model: their anion-p levels sit 0.05–0.15 eV above the VBM at Γ
+  and disperse into the valence band at other k points, so analyses that average over k may report no
+  in-gap state for them. That contrast (deep anion vs shallow cation vacancy) is part of the demo.
+* 64-atom cells: the defect bands disperse by a few tenths of an eV across the k grid; the levels
+  below are Γ values, k-averaged values are higher.
+* No spin polarisation, no long-range electrostatics, first-shell breathing as the only relaxation.
+
 ## Results (Γ-point in-gap level; host band edges over the k grid)
 | case | breathing | q | level at Γ (eV) | above VBM (eV) | PARCHG bands | in gap | E0 (eV) |
 |---|---|---|---|---|---|---|---|
