@@ -137,7 +137,15 @@ def main(argv=None) -> int:
     p.add_argument("--out", default=str(DEFAULT_OUT), help="output folder (default: the package's demo/data)")
     p.add_argument("--workers", type=int, default=2, help="worker processes (default 2)")
     a = p.parse_args(argv)
-    generate(a.out, a.workers)
+    out = Path(a.out)
+    if out.exists() and not out.is_dir():
+        print(f"error: --out {out} exists and is not a folder; expected a folder to write the demo family into",
+              file=sys.stderr)
+        return 2
+    if a.workers < 1:
+        print(f"error: --workers {a.workers}: expected a positive number of worker processes", file=sys.stderr)
+        return 2
+    generate(out, a.workers)
     return 0
 
 
