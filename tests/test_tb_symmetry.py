@@ -66,3 +66,29 @@ def test_p_and_d_decompositions(group):
         assert got_d == D_EXPECT[group]
     else:
         assert sum(v * (2 if k.startswith("E") else 1) for k, v in got_d.items()) == 5
+
+
+def test_tetragonal_vacancy_labels_follow_the_c2_prime_convention():
+    # Six hybrids of an octahedral vacancy elongated along z (D4h): equatorial a1g + b1g + eu, axial
+    # a1g + a2u. With the C2' axes through the equatorial atoms (Cotton's x, y axes) the x²−y²-like
+    # equatorial combination is B1g (Cotton, Appendix IIA, D4h: x² − y² → B1g).
+    from types import SimpleNamespace
+
+    from tb_standin import make_site
+
+    from orbtool.tb import ClusterModel
+    from orbtool.tb.symmetry import label_levels
+
+    site = make_site("NaCl", "rocksalt", a=5.64, remove=1)
+    first = []
+    for n in site.first_shell:
+        v = n.vector * np.array([1.0, 1.0, 1.08])
+        first.append(SimpleNamespace(index=n.index, element=n.element, vector=v))
+    ops = GROUPS["D4h"][::-1].copy()  # an operation order for which first-come column matching gives b2g
+    tet = SimpleNamespace(position=site.position, defect=None, first_shell=tuple(first), second_shell=(),
+                          point_group="D4h", operations=ops)
+    m = ClusterModel.around(tet, "hybrid", term_values="lda-sr")
+    lv = m.solve()
+    labels = label_levels(lv.energies[0], lv.vectors[0], m.vectors, "D4h", ops, 1, True,
+                          first_vectors=m.vectors)
+    assert sorted(labels) == ["a1g", "a1g", "a2u", "b1g", "eu", "eu"]

@@ -97,13 +97,10 @@ def conjugacy_classes(ops, tol: float = 1e-3) -> list[list[int]]:
 
 
 def _atoms_on(op, kind, vectors, tol=1e-2):
-    """How many first-shell vectors lie on a C2 axis / in a mirror plane of ``op``."""
+    """How many first-shell atoms ``op`` leaves in place (on a C2 axis / in a mirror plane)."""
     vectors = np.asarray(vectors)
-    if kind == "C2":
-        fixed = np.linalg.norm(vectors @ op.T - vectors, axis=1) < tol * np.linalg.norm(vectors, axis=1)
-    else:
-        fixed = np.linalg.norm(vectors @ op.T - vectors, axis=1) < tol * np.linalg.norm(vectors, axis=1)
-    return int(fixed.sum())
+    moved = np.linalg.norm(vectors @ op.T - vectors, axis=1)
+    return int((moved < tol * np.linalg.norm(vectors, axis=1)).sum())
 
 
 def class_columns(group: str, ops, first_vectors=None, tol: float = 1e-3):
