@@ -21,6 +21,12 @@ __all__ = ["OutputFolder", "MARKER"]
 MARKER = ".orbtool-output"
 
 
+def _umask() -> int:
+    old = os.umask(0)
+    os.umask(old)
+    return old
+
+
 class OutputFolder:
     """A folder orbtool may write results into.
 
@@ -65,6 +71,7 @@ class OutputFolder:
         try:
             with os.fdopen(fd, "w", encoding="utf-8") as fh:
                 fh.write(text)
+            os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give outputs the usual permissions
             os.replace(tmp, p)
         except BaseException:
             if os.path.exists(tmp):

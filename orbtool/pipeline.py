@@ -90,8 +90,8 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
         texts += [fit.summary(), "", "Mechanism", "---------", fit.explain(), ""]
         try:
             inv = fit.smallest_change_to_shallow()
-            texts += ["What would make it shallow?", "---------------------------", inv.summary()
-                      if hasattr(inv, "summary") else str(inv), ""]
+            texts += ["What would make it shallow? (smallest change per knob; model prediction)",
+                      "---------------------------", *_inverse_lines(inv), ""]
         except OrbtoolError as exc:
             texts += [f"Inverse question not answered: {exc}", ""]
     for key, dl in res.levels.items():
@@ -110,12 +110,30 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
     return folder.root
 
 
+def _inverse_lines(changes) -> list[str]:
+    """One readable line per knob of ``fit.smallest_change_to_shallow()``."""
+    changes = changes if isinstance(changes, (list, tuple)) else [changes]
+    lines = []
+    for c in changes:
+        if c.reached:
+            lines.append(f"  {c.knob:<16} change {c.change:+.3f} ± {c.sigma:.3f} {c.unit:<3} → level "
+                         f"{c.level_after:+.3f} eV above the VBM  ({c.note})")
+        else:
+            lines.append(f"  {c.knob:<16} not reachable: {c.note}")
+    return lines
+
+
 def _representative(res, fit):
-    """The case the single-case figures show: the deepest fitted level."""
+    """The case the single-case figures show: among the fitted cases, a relaxed
+    neutral one (not a what-if variant) with the deepest level."""
     cands = [r for r in res.results if r.ok and r.state is not None and (fit is None or r.name in res.fit_cases)]
     if not cands:
         return None
-    return max(cands, key=lambda r: min(r.state.above_vbm, r.state.below_cbm))
+
+    def key(r):
+        plain = str(r.labels.get("variant", "relaxed")) in ("relaxed", "", "None")
+        return (plain, r.charge == 0, min(r.state.above_vbm, r.state.below_cbm))
+    return max(cands, key=key)
 
 
 def _figures(folder, fam, res, fit, quiet):

@@ -12,20 +12,38 @@ DOUBLE_WIDTH_IN = 178 / 25.4
 FONT_EMBEDDING = {"pdf.fonttype": 42, "ps.fonttype": 42, "svg.fonttype": "none"}
 
 
+def style_context():
+    """``with style_context(): ...`` — draw in orbtool's print style (fonts sized for a
+    journal column, embedded fonts, the palette of :mod:`orbtool.style`)."""
+    import matplotlib.pyplot as plt
+
+    from ..style import matplotlib_rc
+    return plt.rc_context({**matplotlib_rc(), **FONT_EMBEDDING, "font.size": 7, "axes.titlesize": 7,
+                           "axes.labelsize": 7, "legend.fontsize": 6, "xtick.labelsize": 6.5,
+                           "ytick.labelsize": 6.5})
+
+
+def styled(func):
+    """Decorator: run a figure builder inside :func:`style_context`."""
+    import functools
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        with style_context():
+            return func(*args, **kwargs)
+    return wrapper
+
+
 def new_figure(width: str = "single", aspect: float = 0.8):
-    """A matplotlib figure in orbtool's style at a journal width (``"single"`` or ``"double"``)."""
+    """A matplotlib figure at a journal width (``"single"`` or ``"double"``); call
+    inside :func:`style_context` (the figure builders are decorated with :func:`styled`)."""
     import matplotlib
 
     matplotlib.use("Agg", force=False)
     import matplotlib.pyplot as plt
 
-    from ..style import matplotlib_rc
     w = COLUMN_WIDTH_IN if width == "single" else DOUBLE_WIDTH_IN
-    with plt.rc_context({**matplotlib_rc(), **FONT_EMBEDDING, "font.size": 7.5, "axes.titlesize": 8,
-                         "axes.labelsize": 7.5, "legend.fontsize": 6.5, "xtick.labelsize": 6.5,
-                         "ytick.labelsize": 6.5}):
-        fig = plt.figure(figsize=(w, w * aspect), layout="constrained")
-    return fig
+    return plt.figure(figsize=(w, w * aspect), layout="constrained")
 
 
 def save_figure(fig, base, formats=("svg", "pdf", "png"), dpi: int = 600) -> list[Path]:

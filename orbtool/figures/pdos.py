@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import numpy as np
+
 from .. import style
-from .export import new_figure
+from .export import new_figure, styled
 
 
+@styled
 def pdos_figure(case, site, states=(), *, edges=None, alignment=None, window=None, width: str = "single",
                 broadening_note: bool = True):
     """First-shell projected DOS of host (dashed) and defect cell (solid), per l.
@@ -50,17 +53,25 @@ def pdos_figure(case, site, states=(), *, edges=None, alignment=None, window=Non
     ymax = ymax or 1.0
     ax.axvspan(window[0], 0.0, color=style.VALENCE, lw=0, zorder=0)
     ax.axvspan(cbm - vbm, window[1], color=style.CONDUCTION, lw=0, zorder=0)
-    for s in states:
-        x = float(s.above_vbm)
+    groups: list[list] = []  # nearly degenerate states (a multiplet, both spins) share one marker
+    for st in sorted(states, key=lambda s_: s_.above_vbm):
+        if groups and abs(st.above_vbm - groups[-1][-1].above_vbm) < 0.05:
+            groups[-1].append(st)
+        else:
+            groups.append([st])
+    for g in groups:
+        x = float(np.mean([st.above_vbm for st in g]))
         ax.axvline(x, color=style.LEVEL, lw=1.2)
-        ax.text(x, ymax * 1.02, f"{s.occupation:.2g} e⁻", color=style.LEVEL, ha="center", va="bottom", fontsize=6)
+        occ = sum(st.occupation for st in g)
+        ax.text(x, ymax * 1.02, f"{len(g)} state{'s' if len(g) > 1 else ''}, {occ:.2f} e", color=style.LEVEL,
+                ha="center", va="bottom", fontsize=5.5)
     ax.set_xlim(*window)
     ax.set_ylim(0, ymax * 1.15)
     ax.set_xlabel(style.ENERGY_LABEL)
     ax.set_ylabel("first-shell PDOS (states/eV)")
-    ax.legend(loc="upper left", ncols=2)
-    ax.set_title(f"{case.name}: {len(first_def)} first-shell atoms; alignment {shift:+.3f} eV ({alignment.method})",
-                 loc="left", fontsize=7)
+    ax.legend(loc="upper left", ncols=3, fontsize=5.5)
+    ax.set_title(f"{case.name}: {len(first_def)} first-shell atoms\nhost dashed, defect solid "
+                 f"(aligned by {shift:+.3f} eV)", loc="left", fontsize=6.5)
     return fig
 
 

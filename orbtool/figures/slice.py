@@ -6,7 +6,7 @@ import numpy as np
 from scipy.ndimage import map_coordinates
 
 from .. import style
-from .export import new_figure
+from .export import new_figure, styled
 
 
 def _plane_axes(normal):
@@ -33,6 +33,7 @@ def sample_plane(grid, center, normal=(0, 0, 1), half_width: float = 6.0, points
     return s, s, vals, (u, v)
 
 
+@styled
 def state_slice_figure(grid, site, *, normal=None, half_width: float = 6.0, width: str = "single",
                        atom_window: float = 0.6):
     """Density of the in-gap state in the plane through the vacancy that holds
@@ -66,7 +67,7 @@ def state_slice_figure(grid, site, *, normal=None, half_width: float = 6.0, widt
     ax.grid(False)
     cb = fig.colorbar(im, ax=ax, shrink=0.85)
     cb.set_label("state density (1/Å³)")
-    ax.set_title(f"in-gap state, plane ⟂ ({n[0]:.2f}, {n[1]:.2f}, {n[2]:.2f}) through the vacancy (×)",
+    ax.set_title(f"in-gap state density; plane normal ({n[0]:.2f}, {n[1]:.2f}, {n[2]:.2f}), vacancy ×",
                  loc="left", fontsize=6.5)
     return fig
 

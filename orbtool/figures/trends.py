@@ -5,9 +5,21 @@ from __future__ import annotations
 import numpy as np
 
 from .. import style
-from .export import new_figure
+from .export import new_figure, styled
+
+#: axis labels of the family-table columns (units in parentheses)
+AXIS_LABELS = {
+    "pair_distance_mean": "mean first-shell pair distance (Å)",
+    "site_distance_mean": "mean neighbour–site distance (Å)",
+    "breathing_fraction": "breathing (fraction of host distance)",
+    "breathing_amplitude": "breathing amplitude (Å)",
+    "angle_mean": "mean neighbour–site–neighbour angle (°)",
+    "shell1_fraction": "state weight on the first shell",
+    "s_weight": "s character of the state",
+}
 
 
+@styled
 def trend_figure(rows, x: str, *, y: str = "above_vbm", colour_by: str = "motif",
                  shape_by: str = "vacancy", width: str = "single"):
     """Scatter of ``y`` against ``x`` over the family table ``rows``
@@ -28,7 +40,8 @@ def trend_figure(rows, x: str, *, y: str = "above_vbm", colour_by: str = "motif"
         if isinstance(gap, float):
             ax.plot([r[x], r[x]], [0, gap], color=style.GRID_LINE, lw=3, zorder=1, solid_capstyle="butt")
         ax.scatter(r[x], r[y], color=col, marker=mk, s=28, edgecolor=style.INK, linewidth=0.4, zorder=3)
-        ax.annotate(r["name"], (r[x], r[y]), xytext=(3, 3), textcoords="offset points", fontsize=5)
+        if len(pts) <= 6:
+            ax.annotate(r["name"], (r[x], r[y]), xytext=(3, 3), textcoords="offset points", fontsize=5)
     for c in cats:  # legend entries: colours
         ax.scatter([], [], color=style.CATEGORICAL[cats.index(c) % len(style.CATEGORICAL)], marker="o",
                    label=f"{colour_by}: {c}")
@@ -37,14 +50,14 @@ def trend_figure(rows, x: str, *, y: str = "above_vbm", colour_by: str = "motif"
         ax.scatter([], [], color=style.MUTED, marker=style.glyph_for(sname, library="matplotlib"),
                    label=f"{shape_by}: {sname}")
     ax.axhline(0, color=style.INK, lw=0.6)
-    ax.set_xlabel(x.replace("_", " "))
+    ax.set_xlabel(AXIS_LABELS.get(x, x.replace("_", " ")))
     ax.set_ylabel("defect level above VBM (eV)" if y == "above_vbm" else y.replace("_", " "))
     if pts:
         xs = np.array([r[x] for r in pts])
         ys = np.array([r[y] for r in pts])
         if len(pts) >= 3 and np.ptp(xs) > 0 and np.ptp(ys) > 0:
             r_ = float(np.corrcoef(xs, ys)[0, 1])
-            ax.set_title(f"level vs {x.replace('_', ' ')} (Pearson r = {r_:+.2f}, n = {len(pts)})",
-                         loc="left", fontsize=7)
-    ax.legend(loc="best", fontsize=5.5)
+            ax.set_title(f"Pearson r = {r_:+.2f} over {len(pts)} defect states (bars: each host's gap)",
+                         loc="left", fontsize=6.5)
+    fig.legend(loc="outside lower center", ncols=3, fontsize=5.5)
     return fig
