@@ -285,3 +285,17 @@ def test_impossible_swap_is_reported_and_the_level_kept(standin_fit):
     le.swap.value = "Si → Og"
     assert le.prediction.level == level
     assert "previous result kept" in le.notes.value and "Og" in le.notes.value
+
+
+def test_upload_is_read_from_a_fresh_temporary_folder(case_and_site, tmp_path):
+    from orbtool.io import write_pdos
+    from orbtool.widgets import Loader
+
+    case, _ = case_and_site
+    data = write_pdos(tmp_path / "pdos.npz", case.defect_pdos).read_bytes()
+    loader = Loader()
+    loader._on_upload({"new": [{"name": "pdos.npz", "content": memoryview(data)}]})
+    assert loader.value is not None and "loaded" in loader.status.value
+    src = Path(loader.value.source)
+    assert src.parent != tmp_path and src.parent.name.startswith("orbtool-upload-")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["pdos.npz"]  # nothing written next to the input
