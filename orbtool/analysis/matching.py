@@ -144,8 +144,11 @@ def _find_shift(frame, yd, zd, zh, radius, rng):
     refs = rng.choice(np.flatnonzero(zd == ref_z), size=min(3, counts[ref_z]), replace=False)
     host_same = np.flatnonzero(zh == ref_z)
     cands = frame.mic((yd[refs][:, None, :] - frame.positions[host_same][None]).reshape(-1, 3))
+    # every lattice translation of the crystal gives an equally good shift, so the 256 shortest candidates
+    # per reference atom hold a representative unless the primitive cell has > 256 atoms of that element
+    keep = np.argsort(np.linalg.norm(cands, axis=1).reshape(len(refs), -1), axis=1)[:, :256]
+    cands = cands.reshape(len(refs), -1, 3)[np.arange(len(refs))[:, None], keep].reshape(-1, 3)
     cands = np.vstack([np.zeros((1, 3)), cands])
-    cands = frame.mic(cands)
     sub = rng.choice(n, size=min(n, 16), replace=False)
     pts = (yd[sub][None, :, :] - cands[:, None, :]).reshape(-1, 3)
     sub_scores = _score(frame, pts, np.tile(zd[sub], len(cands)), zh, radius).reshape(len(cands), -1).sum(1)
@@ -158,12 +161,13 @@ def _find_shift(frame, yd, zd, zh, radius, rng):
             break
         if all(np.linalg.norm(frame.mic(cands[i] - cands[j])) > radius for j in top):
             top.append(int(i))
-    full = np.array([_score(frame, yd - cands[i], zd, zh, radius).sum() for i in top])
-    tied = [top[i] for i in np.flatnonzero(full >= full.max() - max(1, int(0.01 * n)))]
+    probe = rng.choice(n, size=min(n, 400), replace=False)  # a larger sample settles the finalists
+    full = np.array([_score(frame, yd[probe] - cands[i], zd[probe], zh, radius).sum() for i in top])
+    tied = [top[i] for i in np.flatnonzero(full >= full.max() - max(1, int(0.01 * len(probe))))]
     # refine each tied shift by the mean displacement of the atoms it matches, then compare lengths
     refined = []
     for i in tied:
-        idx, vec = frame.candidates(yd - cands[i], 1)
+        idx, vec = frame.candidates(yd[probe] - cands[i], 1)
         refined.append(cands[i] + _robust_mean(vec[:, 0]))
     refined = np.array(refined)
     rn = np.linalg.norm(refined, axis=1)
