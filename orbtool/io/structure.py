@@ -33,8 +33,9 @@ def read_structure(path, format: str | None = None, index=-1):
         if format == "vasp":
             with open_binary(p) as fh:
                 import io
-                text = io.StringIO(fh.read().decode("utf-8", errors="strict"))
-            atoms = ase.io.read(text, format="vasp")
+                raw = fh.read().decode("utf-8", errors="strict")
+            _check_poscar_counts(raw, p)
+            atoms = ase.io.read(io.StringIO(raw), format="vasp")
         else:
             atoms = ase.io.read(str(p), format=format, index=index)
     except InputFormatError:
@@ -48,6 +49,26 @@ def read_structure(path, format: str | None = None, index=-1):
     if len(atoms) == 0:
         raise InputFormatError(p, None, "the structure has no atoms")
     return atoms
+
+
+def _check_poscar_counts(text: str, path) -> None:
+    """Refuse a POSCAR whose atom counts exceed the coordinate lines that follow, before ASE
+    allocates arrays of the declared size (VASP manual, "POSCAR": counts on line 6, or line 7
+    after an element-name line; then optional 'Selective dynamics', the coordinate mode, one
+    line per atom)."""
+    lines = text.splitlines()
+    for i in (5, 6):
+        tok = lines[i].split() if i < len(lines) else []
+        if tok and all(t.isdigit() for t in tok):
+            total = sum(int(t) for t in tok)
+            j = i + 1
+            if j < len(lines) and lines[j].strip()[:1] in ("s", "S"):
+                j += 1
+            left = max(len(lines) - j - 1, 0)
+            if total > left:
+                raise InputFormatError(path, i + 1, f"atom counts add up to {total:,d} but only {left:,d} lines "
+                                       "follow the coordinate-mode line", field="atom counts")
+            return
 
 
 _OSZ = re.compile(r"^\s*\d+\s+F=\s*(\S+)\s+E0=\s*(\S+)")
