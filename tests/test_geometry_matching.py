@@ -199,3 +199,19 @@ def test_equally_short_rigid_shifts_are_reported():
     defect.positions += [A_NACL / 4, A_NACL / 4, 0.0]  # half of the fcc translation (a/2, a/2, 0)
     with pytest.raises(GeometryError, match="two equally good candidates.*expected="):
         locate_vacancy(host, defect)
+
+
+def test_summary_and_tiny_cell():
+    # primitive diamond cell (2 atoms, ASE builder): the 4 first neighbours are images of one atom at a√3/4
+    # (Kittel ch. 1); moving them rigidly is impossible and says so
+    host = bulk("Si", "diamond", a=5.43)
+    site = locate_vacancy(host, _remove(host, 0))
+    assert len(site.first_shell) == 4 and {nb.index for nb in site.first_shell} == {0}
+    assert [nb.host_distance for nb in site.first_shell] == pytest.approx([5.43 * np.sqrt(3) / 4] * 4, abs=1e-9)
+    assert len({tuple(nb.image) for nb in site.first_shell}) == 4
+    with pytest.raises(GeometryError, match="too small"):
+        site.breathe(-0.05)
+    text = site.summary()
+    assert "Vacancy of Si" in text and "Td" in text
+    with pytest.raises(GeometryError, match="no Cl atom"):
+        locate_vacancy(HOSTS["zincblende"], _remove(HOSTS["zincblende"], 1), expected="Cl")
