@@ -239,3 +239,30 @@ def test_edits_return_new_atoms_and_leave_inputs_untouched():
         site.swap_element("Zn", "Cd")
     with pytest.raises(GeometryError, match="unknown distortion mode"):
         site.distort("Q7", 0.1)
+
+
+def test_emt_relaxed_copper_vacancy():
+    # a real relaxation: ASE's EMT potential (K. W. Jacobsen, P. Stoltze, J. K. Nørskov, Surf. Sci. 366, 394
+    # (1996)) relaxes a Cu vacancy keeping Oh; the radial displacements must equal those measured directly
+    # with ase.geometry on the relaxed positions; fcc-metal first neighbours relax inward ([from memory])
+    from ase.calculators.emt import EMT
+    from ase.geometry import get_distances
+    from ase.optimize import BFGS
+
+    host = bulk("Cu", "fcc", a=3.61, cubic=True).repeat(2)
+    relaxed = _remove(host, 0)
+    relaxed.calc = EMT()
+    BFGS(relaxed, logfile=None).run(fmax=0.005, steps=200)
+    relaxed.calc = None
+    shifted = relaxed.copy()
+    shifted.positions += [0.7, 0.3, -0.2]
+    order = np.random.default_rng(1).permutation(len(shifted))
+    site = locate_vacancy(host, shifted[order], symprec=0.01)
+    assert site.host_index == 0 and site.point_group == "Oh"
+    assert np.allclose(site.shift, [0.7, 0.3, -0.2], atol=1e-6)
+    _, d = get_distances(relaxed.positions, [host.positions[0]], cell=host.cell, pbc=True)
+    first = np.argsort(d[:, 0])[:12]
+    radial = np.sort(d[first, 0] - 3.61 / np.sqrt(2))
+    assert np.sort([nb.radial_displacement for nb in site.first_shell]) == pytest.approx(radial, abs=1e-6)
+    assert radial.max() < 0  # inward
+    assert site.descriptors()["distortion_total"] == pytest.approx(0.0, abs=1e-4)
