@@ -16,7 +16,7 @@ import numpy as np
 from .. import style
 from ._sources import named_sources, remember
 
-__all__ = ["family_columns", "family_board", "numeric_keys", "set_axes", "FAMILY_SOURCE"]
+__all__ = ["family_columns", "family_board", "numeric_keys", "set_axes", "FAMILY_SOURCE", "TABLE_KEYS"]
 
 FAMILY_SOURCE = "orbtool.family.rows"
 
@@ -54,8 +54,17 @@ def numeric_keys(cols: Mapping[str, list]) -> list[str]:
             and v and all(isinstance(x, float) for x in v)]
 
 
-def family_board(cols: Mapping[str, list], *, x: str, y: str = "above_vbm", width: int = 560, height: int = 380):
-    """(scatter figure, data table) sharing one source named :data:`FAMILY_SOURCE`."""
+#: columns shown in the table (when present), in this order; the scatter can use every numeric column
+TABLE_KEYS = ("name", "motif", "vacancy", "charge", "above_vbm", "below_cbm", "gap", "occupation",
+              "shell1_fraction", "site_distance_mean", "breathing_fraction", "model_above_vbm", "model_minus_dft")
+
+
+def family_board(cols: Mapping[str, list], *, x: str, y: str = "above_vbm", width: int = 560, height: int = 380,
+                 table_keys=TABLE_KEYS):
+    """(scatter figure, data table) sharing one source named :data:`FAMILY_SOURCE`.
+
+    The table shows ``table_keys`` that exist (all columns if fewer than
+    three of them do); it is sortable by clicking a header."""
     from bokeh.models import ColumnDataSource, DataTable, HoverTool, NumberFormatter, TableColumn
     from bokeh.plotting import figure
 
@@ -72,10 +81,15 @@ def family_board(cols: Mapping[str, list], *, x: str, y: str = "above_vbm", widt
     fig.x_range.range_padding = fig.y_range.range_padding = 0.2
     remember(fig, {FAMILY_SOURCE: src})
     set_axes(fig, x, y)
-    table_cols = [TableColumn(field=k, title=k, formatter=NumberFormatter(format="0.000")
+    shown = [k for k in table_keys if k in cols]
+    if len(shown) < 3:
+        shown = [k for k in cols if not k.startswith("_") and k not in ("colour", "marker")]
+    table_cols = [TableColumn(field=k, title=k, width=220 if k == "name" else 90,
+                              formatter=NumberFormatter(format="0.[000]")
                               if all(isinstance(v, float) for v in cols[k]) else _plain())
-                  for k in cols if not k.startswith("_") and k not in ("colour", "marker")]
-    table = DataTable(source=src, columns=table_cols, width=width, height=min(40 + 28 * len(cols["name"]), 300),
+                  for k in shown]
+    table = DataTable(source=src, columns=table_cols, width=max(width, 130 + 90 * len(shown)), autosize_mode="none",
+                      height=min(40 + 28 * len(cols["name"]), 300),
                       sortable=True, selectable=True, index_position=None, name="orbtool.family.table")
     return style.style_figure(fig), table
 

@@ -125,7 +125,7 @@ class App:
             self._family_fit = fit
         else:
             self._family_fit = self.fit
-        self.board = FamilyBoard(board_rows(fa), on_select=lambda name: self.show_case(family[name]),
+        self.board = FamilyBoard(board_rows(fa, self._family_fit), on_select=lambda name: self.show_case(family[name]),
                                  errors=fa.errors)
         self.panes["Family"].children = [self.board.widget]
         ok = [r.name for r in fa.results if r.ok]

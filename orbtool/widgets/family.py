@@ -7,15 +7,20 @@ import ipywidgets as w
 
 from ..views._sources import named_sources
 from ..views.family import FAMILY_SOURCE, family_board, family_columns, numeric_keys, set_axes
-from ._common import bokeh_pane, message_html
+from ._common import attempt, bokeh_pane, message_html
 
 __all__ = ["FamilyBoard", "board_rows"]
 
 
-def board_rows(analysis) -> list[dict]:
+def board_rows(analysis, fit=None) -> list[dict]:
     """Rows for the board from a :class:`orbtool.family.FamilyAnalysis`
     (its ``table()``), with ``name`` and ``above_vbm`` named as the views expect.
-    Text-only columns other than the labels are dropped."""
+
+    With a (shared) ``fit``, each fitted case also gets ``model_above_vbm``
+    (the model's level, eV), ``model_minus_dft`` (eV) and its per-case
+    parameters (``<name>@<case>`` → ``fit_<name>``), so fitted quantities
+    can be plotted against the descriptors.
+    """
     rows = []
     for r in analysis.table():
         row = {"name": r.get("name", r.get("case"))}
@@ -24,8 +29,24 @@ def board_rows(analysis) -> list[dict]:
                 continue
             row[k] = v
         row["above_vbm"] = r.get("above_vbm", r.get("level_above_vbm"))
+        if fit is not None:
+            row.update(_fitted(fit, row["name"], row["above_vbm"]))
         rows.append(row)
     return rows
+
+
+def _fitted(fit, name, dft_level) -> dict:
+    out = {"model_above_vbm": None, "model_minus_dft": None}
+    params = getattr(fit, "params", {}) or {}
+    for k, v in params.items():
+        if k.endswith(f"@{name}"):
+            out[f"fit_{k.split('@')[0]}"] = float(v)
+    p, err = attempt(fit.predict, case=name)
+    if err is None:
+        out["model_above_vbm"] = float(p.above_vbm)
+        if dft_level is not None:
+            out["model_minus_dft"] = float(p.above_vbm) - float(dft_level)
+    return out
 
 
 class FamilyBoard:
@@ -46,7 +67,8 @@ class FamilyBoard:
         self.on_select = on_select
         self.cols = family_columns(rows)
         axes = [k for k in numeric_keys(self.cols) if k != "above_vbm"] or ["above_vbm"]
-        self.x = w.Dropdown(options=axes, value=axes[0], description="x axis")
+        first = next((k for k in ("site_distance_mean", "breathing_fraction", "gap") if k in axes), axes[0])
+        self.x = w.Dropdown(options=axes, value=first, description="x axis")
         self.y = w.Dropdown(options=numeric_keys(self.cols), value="above_vbm" if "above_vbm" in self.cols
                             else numeric_keys(self.cols)[0], description="y axis")
         self.figure, self.table = family_board(self.cols, x=self.x.value, y=self.y.value)
