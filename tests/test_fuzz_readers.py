@@ -289,15 +289,15 @@ def test_fuzz_reader_raises_only_orbtool_errors(kind, ops):
 
 
 @pytest.mark.parametrize("kind", ["cube", "xsf", "chgcar", "doscar", "procar", "orbtool-projections", "npz",
-                                  "cp2k-pdos"])
+                                  "cp2k-pdos", "poscar", "session"])
 @settings(max_examples=EXAMPLES // 2, deadline=3000, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(which=st.integers(0, 40), huge=st.sampled_from(HUGE))
 def test_fuzz_huge_declared_size(kind, which, huge):
     """Replace one integer of the header with a huge count: refused before allocating."""
     data = _valid(kind)
-    if kind == "npz":  # the .npy header inside the archive declares the array shape
-        data = _lie_in_npz(data, int(huge))
+    if kind in ("npz", "session"):  # the .npy header inside the archive declares the array shape
+        data = _lie_in_npz(data, int(huge), member=None if kind == "session" else "weights.npy")
     else:
         toks = [t for t in _tokens(data)[:120] if data[t[0]:t[1]].isdigit()]
         a = toks[which % len(toks)]
@@ -311,8 +311,8 @@ def test_fuzz_huge_declared_size(kind, which, huge):
         shutil.rmtree(d, ignore_errors=True)
 
 
-def _lie_in_npz(data: bytes, n: int) -> bytes:
-    """The NPZ rebuilt with the first dimension of its 'weights' array declared as ``n`` in the
+def _lie_in_npz(data: bytes, n: int, member: str | None = "weights.npy") -> bytes:
+    """The archive rebuilt with the first dimension of ``member`` (every array if None) declared as ``n`` in the
     ``.npy`` header (NumPy format NEP 1) while the data stay small; CRCs are recomputed, so only
     the size is a lie."""
     import io
@@ -322,7 +322,7 @@ def _lie_in_npz(data: bytes, n: int) -> bytes:
     with zipfile.ZipFile(io.BytesIO(data)) as zin, zipfile.ZipFile(out, "w") as zout:
         for name in zin.namelist():
             raw = zin.read(name)
-            if name == "weights.npy":
+            if name.endswith(".npy") and (member is None or name == member):
                 raw = re.sub(rb"'shape': \((\d+),", b"'shape': (%d," % n, raw, count=1)
             zout.writestr(name, raw)
     return out.getvalue()
@@ -388,5 +388,52 @@ def test_fuzz_session_members(ops, member):
     (d / "s.orbsession").write_bytes(data)
     try:
         check_reader(orbtool.load_session, d / "s.orbsession")
+    finally:
+        shutil.rmtree(d, ignore_errors=True)
+
+
+@pytest.mark.parametrize("kind", sorted(SOURCES))
+def test_truncation_sweep(kind):
+    """Every source cut at 24 evenly spaced offsets and in its last bytes (a run killed while
+    writing): an orbtool error or a valid result, never anything else."""
+    data, name, read = _valid(kind), SOURCES[kind][1], SOURCES[kind][2]
+    cuts = sorted({int(x) for x in np.linspace(0, len(data), 25)[:-1]} | {len(data) - k for k in (1, 2, 5, 17)})
+    d = Path(tempfile.mkdtemp(dir=_WORK))
+    try:
+        for cut in cuts:
+            (d / name).write_bytes(data[:cut])
+            check_reader(read, d / name)
+    finally:
+        shutil.rmtree(d, ignore_errors=True)
+
+
+_SI64 = None
+
+
+def _si64():
+    global _SI64
+    if _SI64 is None:
+        from ase.build import bulk
+        from ase.io import write
+        host = bulk("Si", "diamond", a=5.43, cubic=True) * (2, 2, 2)
+        defect = host.copy()
+        del defect[7]
+        _SI64 = (host, _ase_file("POSCAR", lambda f: write(f, defect, format="vasp", direct=True)))
+    return _SI64
+
+
+@settings(max_examples=EXAMPLES // 2, deadline=5000, derandomize=DERANDOMIZE, database=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(ops=mutations)
+def test_fuzz_structure_into_locate_vacancy(ops):
+    """A damaged defect POSCAR (ASE-written 63-atom Si cell) read and handed to locate_vacancy with
+    the pristine 64-atom host: whatever the damage, only orbtool errors (GeometryError,
+    InputFormatError) come out."""
+    from orbtool.analysis import locate_vacancy
+    host, data = _si64()
+    d = Path(tempfile.mkdtemp(dir=_WORK))
+    (d / "POSCAR").write_bytes(mutate(data, ops))
+    try:
+        check_reader(lambda p: locate_vacancy(host, orbtool.read_structure(p)), d / "POSCAR")
     finally:
         shutil.rmtree(d, ignore_errors=True)

@@ -178,6 +178,7 @@ def structures_and_energies():
     gaas = bulk("GaAs", "zincblende", a=5.65, cubic=True)
     poscar = _ase("POSCAR", lambda f: write(f, gaas, format="vasp", direct=True))
     _text(HERE / "structure" / "POSCAR_truncated", "\n".join(poscar.splitlines()[:9]) + "\n")
+    _text(HERE / "structure" / "POSCAR_huge_count", _replace_line(poscar, 7, "  1000000000  4"))
     _bytes(HERE / "structure" / "POSCAR_garbage", RNG.integers(0, 256, 600, dtype=np.uint8).tobytes())
     _bytes(HERE / "structure" / "POSCAR_empty", b"")
     osz = (FIX / "vasp_spin" / "OSZICAR").read_text()
