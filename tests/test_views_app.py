@@ -299,3 +299,18 @@ def test_upload_is_read_from_a_fresh_temporary_folder(case_and_site, tmp_path):
     src = Path(loader.value.source)
     assert src.parent != tmp_path and src.parent.name.startswith("orbtool-upload-")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["pdos.npz"]  # nothing written next to the input
+
+
+def test_family_board_picking_a_point_selects_the_case():
+    from orbtool.widgets import FamilyBoard
+
+    rows = [dict(name="a", motif="rocksalt", vacancy="V_anion", above_vbm=0.5, d1=2.3),
+            dict(name="b", motif="zincblende", vacancy="V_cation", above_vbm=0.1, d1=2.9)]
+    picked = []
+    board = FamilyBoard(rows, on_select=picked.append)
+    board.source.selected.indices = [1]  # as a tap on the second point would
+    assert picked == ["b"] and board.pick.value == "b"
+    board.select("a")
+    assert picked == ["b", "a"] and list(board.source.selected.indices) == [0]
+    with pytest.raises(KeyError):
+        board.select("zz")
