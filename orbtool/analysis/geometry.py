@@ -105,25 +105,39 @@ def _resolve_expected(expected, host):
     return "index", int(np.argmin(np.linalg.norm(mic, axis=1)))
 
 
-def _choose_match(host, defect, kind, value, tolerance) -> SiteMatch:
+def _choose_match(host, defect, kind, value, tolerance) -> tuple[SiteMatch, list]:
+    """Match, resolving equally short rigid shifts; returns the match and notes for the site."""
     hc, hp, hz = host.get_cell().array, host.get_positions(), host.get_atomic_numbers()
     dc, dp, dz = defect.get_cell().array, defect.get_positions(), defect.get_atomic_numbers()
     forbid = [value] if kind == "index" else []
     m = match_sites(hc, hp, hz, dc, dp, dz, host.get_pbc(), tolerance=tolerance, forbid=forbid)
     if not len(m.alternative_shifts):
-        return m
+        return m, []
     options = [m] + [match_sites(hc, hp, hz, dc, dp, dz, host.get_pbc(), tolerance=tolerance, forbid=forbid,
                                  shift=s) for s in m.alternative_shifts]
     if kind == "index":
-        return min(options, key=lambda o: np.nanmax(o.distances) if len(o.distances) else 0.0)
-    firsts = sorted({int(o.missing[0]) for o in options if len(o.missing)})
-    if len(firsts) > 1:
-        raise GeometryError(
-            f"two equally good candidates: the defect cell is rigidly shifted so that host atoms "
-            f"{' and '.join(map(str, firsts[:4]))} fit the missing atom equally well (shifts "
-            f"{[np.round(o.shift, 3).tolist() for o in options[:4]]} Å); pass expected=<host index>, "
-            f"e.g. expected={firsts[0]}")
-    return m
+        return min(options, key=lambda o: np.nanmax(o.distances) if len(o.distances) else 0.0), []
+    # shifts that differ by a lattice translation of the crystal describe the same structure: the missing
+    # atoms sit at the same places and only their host labels differ. Anything else is a real ambiguity.
+    ref = hp[m.missing] + m.shift
+    same = True
+    for o in options[1:]:
+        pos = hp[o.missing] + o.shift
+        if len(pos) != len(ref):
+            same = False
+            break
+        d = np.linalg.norm(minimum_image(hc, pos[:, None, :] - ref[None, :, :], host.get_pbc())[0], axis=2)
+        same &= bool(np.all(d.min(axis=1) < 0.3))
+    labels = sorted({int(o.missing[0]) for o in options if len(o.missing)})
+    if same:
+        return m, [f"the rigid shift between the cells is about half a lattice translation: host atoms "
+                   f"{', '.join(map(str, labels[:4]))} name the same site; host atom {int(m.missing[0])} "
+                   "(shortest shift) was taken"]
+    raise GeometryError(
+        f"two equally good candidates: the defect cell is rigidly shifted so that host atoms "
+        f"{' and '.join(map(str, labels[:4]))} fit the missing atom equally well (shifts "
+        f"{[np.round(o.shift, 3).tolist() for o in options[:4]]} Å); pass expected=<host index>, "
+        f"e.g. expected={labels[0]}")
 
 
 def _check_displacements(m, host, defect, primary, tolerance, ambiguity: bool):
@@ -203,7 +217,7 @@ def locate_vacancy(host, defect, expected=None, *, tolerance: float = 1.0, n_she
     _check_atoms(defect, "defect")
     _check_pair(host, defect, max_missing, cell_tolerance)
     kind, value = _resolve_expected(expected, host)
-    m = _choose_match(host, defect, kind, value, tolerance)
+    m, notes = _choose_match(host, defect, kind, value, tolerance)
     hsym, dsym = host.get_chemical_symbols(), defect.get_chemical_symbols()
     if len(m.unmatched):
         i = int(m.unmatched[0])
@@ -218,7 +232,6 @@ def locate_vacancy(host, defect, expected=None, *, tolerance: float = 1.0, n_she
     if len(m.missing) > max_missing:
         raise GeometryError(f"{len(m.missing)} host atoms have no partner (more than max_missing={max_missing}); "
                             "are host and defect the same supercell?")
-    notes = []
     missing = [int(i) for i in m.missing]
     if kind == "index":
         primary = value
