@@ -266,3 +266,23 @@ def test_emt_relaxed_copper_vacancy():
     assert np.sort([nb.radial_displacement for nb in site.first_shell]) == pytest.approx(radial, abs=1e-6)
     assert radial.max() < 0  # inward
     assert site.descriptors()["distortion_total"] == pytest.approx(0.0, abs=1e-4)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_shells_match_ase_neighborlist_on_random_cells(seed):
+    # every periodic image within the reported shells is exactly ASE's neighbour list of the removed atom
+    rng = np.random.default_rng(500 + seed)
+    cell = np.eye(3) * 7.0 + rng.normal(scale=1.0, size=(3, 3))
+    pos = [rng.random(3) @ cell]
+    while len(pos) < 24:  # random atoms at least 1.2 Å apart
+        p = rng.random(3) @ cell
+        if find_mic(np.array(pos) - p, cell, True)[1].min() > 1.2:
+            pos.append(p)
+    host = Atoms(["Si", "O"] * 12, positions=pos, cell=cell, pbc=True)
+    removed = int(rng.integers(len(host)))
+    site = locate_vacancy(host, _remove(host, removed), n_shells=4, shell_tolerance=0.05)
+    got = sorted((nb.host_index, tuple(nb.image)) for sh in site.shells for nb in sh)
+    rmax = max(nb.host_distance for sh in site.shells for nb in sh)
+    i, j, shift = neighbor_list("ijS", host, rmax + 1e-6)
+    ref = sorted((int(b), tuple(int(x) for x in s)) for a, b, s in zip(i, j, shift) if a == removed and b != removed)
+    assert got == ref
