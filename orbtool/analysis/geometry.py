@@ -2,10 +2,20 @@
 
 Two layers, as elsewhere in orbtool: raw-array primitives
 (:func:`orbtool.analysis.matching.match_sites`,
-:func:`orbtool.analysis.periodic.site_neighbours`,
-:func:`orbtool.analysis.pointgroup.find_point_group`) under the
+:func:`orbtool.analysis.periodic.site_neighbours` and
+:func:`~orbtool.analysis.periodic.minimum_image`,
+:func:`orbtool.analysis.pointgroup.find_point_group`,
+:func:`orbtool.analysis.distortions.symmetry_adapted_modes`) under the
 ``ase.Atoms``-level :func:`locate_vacancy`, which returns a
-:class:`~orbtool.analysis.vacancy_site.VacancySite`.
+:class:`~orbtool.analysis.vacancy_site.VacancySite` (descriptors, modes,
+summary; edits in :mod:`orbtool.analysis.edits`).
+
+Steps: match defect atoms to host sites (rigid shift removed, local optimal
+assignment); the unmatched host atoms are the vacancies; shells are clusters
+of host distances from the site over every periodic image (integer cell
+shifts), each neighbour carrying its relaxed vector (host vector plus its
+displacement); the point group is searched on the first shell, checked
+against the second.
 
 Example
 -------

@@ -120,6 +120,9 @@ class VacancySite:
         How each operation permutes the first-shell atoms.
     host_point_group, host_operations, host_permutations
         The same for the unrelaxed first shell (sets the symmetry-adapted modes).
+    host_first_shell : (n_first, 3) float, Å
+        Unrelaxed site→neighbour vectors averaged over the host point group
+        (exactly symmetric; the reference of :meth:`distortion_modes`).
     other_vacancies : list of MissingAtom
         Further missing host atoms (divacancies, complexes).
     substitutions : list of Substitution
