@@ -15,7 +15,7 @@ import ipywidgets as w
 
 from .. import style
 from ._common import attempt, ensure_bokeh, message_html
-from .loader import Loader, load_any
+from .loader import Loader
 
 __all__ = ["App", "fit_case"]
 
@@ -222,7 +222,3 @@ class App:
 
         display(self.widget)
 
-
-def open_path(path) -> "App":
-    """Shortcut: an App on whatever ``path`` is."""
-    return App(load_any(path))
