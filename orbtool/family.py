@@ -210,13 +210,20 @@ class FamilyAnalysis:
         return [e for e in TOXIC_ELEMENTS if e in present]
 
     # --------------------------------------------------------------- fitting
-    def shared_fit(self, orbitals: str = "hybrid", charge: int | None = 0, per_case=(), **fit_options):
+    def shared_fit(self, orbitals: str = "auto", charge: int | None = 0, per_case=(), free=None, **fit_options):
         """One tight-binding model fitted across the family.
 
         Each case contributes its defect state (level above the VBM and its
-        character) as a target; the coupling law and the on-site parameters
-        are shared. Only cases in charge state ``charge`` are used (the model
-        has no charge dependence); ``None`` uses every case.
+        character) as a target; the coupling law is shared and every cation
+        after the first gets its own on-site offset (``shift_<element>``), so
+        the chemistry knob is measured, not assumed. Only cases in charge
+        state ``charge`` are used (the model has no charge dependence);
+        ``None`` uses every case.
+
+        ``orbitals="auto"`` fits the reduced defect molecule (``"hybrid"``) and
+        the full s/p cluster of the first two shells (``"sp"``) and keeps the
+        one with the lower AIC (Akaike, IEEE Trans. Autom. Control 19, 716
+        (1974)); the choice and both AIC values are recorded in :attr:`notes`.
         """
         from . import tb
         use = [r for r in self.results if r.ok and r.state is not None and (charge is None or r.charge == charge)]
@@ -226,8 +233,31 @@ class FamilyAnalysis:
         targets = []
         for r in use:
             targets += tb.targets_from_case(self.family[r.name], r.site, r.state)
-        model = tb.ClusterModel.around(use[0].site, orbitals=orbitals)
-        self.fit_result = tb.fit(model, targets, per_case=per_case, **fit_options)
+        cations = []
+        for r in use:
+            c = r.labels.get("cation")
+            if c and c not in cations:
+                cations.append(c)
+        kinds = ("hybrid", "sp") if orbitals == "auto" else (orbitals,)
+        fits = {}
+        for kind in kinds:
+            model = tb.ClusterModel.around(use[0].site, orbitals=kind)
+            names = {p.name for p in model.with_site(use[0].site).parameters()}
+            chosen = free
+            if chosen is None:
+                chosen = ["vbm", "coupling_scale"] + [f"shift_{c}" for c in cations[1:]]
+                chosen = [n for n in chosen if n == "vbm" or n in names or n.startswith("shift_")]
+            try:
+                fits[kind] = tb.fit(model, targets, per_case=per_case, free=chosen, **fit_options)
+            except OrbtoolError as exc:
+                self.notes.append(f"{kind} model not fitted: {exc}")
+        if not fits:
+            raise OrbtoolError("no cluster model could be fitted: " + "; ".join(self.notes[-len(kinds):]))
+        best = min(fits, key=lambda k: fits[k].aic)
+        if len(fits) > 1:
+            self.notes.append("model chosen by AIC: " + ", ".join(
+                f"{k} {f.aic:.1f}" + (" (kept)" if k == best else "") for k, f in fits.items()))
+        self.fit_result = fits[best]
         self.fit_cases = [r.name for r in use]
         return self.fit_result
 
