@@ -74,7 +74,7 @@ def _orbit(group, p):
     return out
 
 
-@settings(max_examples=30, deadline=None)
+@settings(max_examples=30, deadline=None, derandomize=True)
 @given(family=st.sampled_from(sorted(GENERATORS)), mask=st.integers(1, 2**7 - 1),
        points=st.lists(st.tuples(*[st.floats(-1, 1)] * 3), min_size=1, max_size=2))
 def test_point_groups_agree_with_pyscf(family, mask, points):
@@ -83,6 +83,7 @@ def test_point_groups_agree_with_pyscf(family, mask, points):
     pts, labels = [], []
     for k, p in enumerate(points):
         p = np.array(p)
+        p = np.where(np.abs(p) < 0.1, 0.0, np.round(p, 2))  # exactly on a special position or clearly off it
         if np.linalg.norm(p) < 0.3:
             p = np.array([0.7, 0.2, 0.1])
         p = p / np.linalg.norm(p) * (1.0 + 0.6 * k)
