@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import re
+import tokenize
 import zipfile
 from pathlib import Path
 
@@ -134,10 +135,14 @@ def _check_npy_sizes(path) -> None:
             if not info.filename.endswith(".npy"):
                 continue
             with z.open(info) as fh:
-                version = np.lib.format.read_magic(fh)
-                read = np.lib.format.read_array_header_1_0 if version == (1, 0) else \
-                    np.lib.format.read_array_header_2_0
-                shape, _, dtype = read(fh)
+                try:
+                    version = np.lib.format.read_magic(fh)
+                    read = np.lib.format.read_array_header_1_0 if version == (1, 0) else \
+                        np.lib.format.read_array_header_2_0
+                    shape, _, dtype = read(fh)
+                except (ValueError, SyntaxError, tokenize.TokenError) as exc:  # numpy parses the header as Python
+                    raise InputFormatError(path, None, f"NPZ entry {info.filename!r} has a damaged .npy header "
+                                           f"({type(exc).__name__}: {exc})", field=info.filename) from None
             need = math.prod(int(n) for n in shape) * dtype.itemsize
             if need > min(info.file_size, limit):
                 raise InputFormatError(path, None, f"NPZ entry {info.filename!r} declares shape {shape} "
