@@ -23,6 +23,7 @@ import io
 import json
 import os
 import tempfile
+import tokenize
 import zipfile
 import zlib
 from pathlib import Path
@@ -213,9 +214,12 @@ def _load_npy(z: zipfile.ZipFile, name: str, path: Path) -> np.ndarray:
         raise SessionError(f"{path}: array {name} claims {info.file_size:,d} bytes from "
                            f"{info.compress_size:,d} compressed (damaged or hostile file)")
     fh = io.BytesIO(z.read(name))
-    version = np.lib.format.read_magic(fh)
-    read = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
-    shape, _, dtype = read(fh)
+    try:
+        version = np.lib.format.read_magic(fh)
+        read = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
+        shape, _, dtype = read(fh)
+    except (ValueError, SyntaxError, tokenize.TokenError) as exc:  # numpy parses the header as Python
+        raise SessionError(f"{path}: array {name} has a damaged .npy header ({type(exc).__name__}: {exc})") from None
     need = int(np.prod([int(n) for n in shape], dtype=object)) * dtype.itemsize
     if need > len(fh.getvalue()):
         raise SessionError(f"{path}: array {name} declares shape {shape} ({need:,d} bytes) but holds "
