@@ -26,7 +26,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 import orbtool
@@ -378,16 +378,25 @@ def _rezip(data: bytes, edit) -> bytes:
     return out.getvalue()
 
 
+_MEMBERS = {"session": ["session.json", "arrays/0.npy", "arrays/3.npy"],
+            "npz": ["weights.npy", "energies.npy", "orbtool_kind.npy", "meta.npy"]}
+
+
+@pytest.mark.parametrize("kind", sorted(_MEMBERS))
 @settings(max_examples=EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
-@given(ops=mutations, member=st.sampled_from(["session.json", "arrays/0.npy", "arrays/3.npy"]))
-def test_fuzz_session_members(ops, member):
-    """Damage inside a well-formed archive (valid CRCs): the JSON tree or a .npy member."""
-    data = _rezip(_valid("session"), lambda name, raw: mutate(raw, ops) if name == member else raw)
+@given(ops=mutations, which=st.integers(0, 3))
+@example(ops=[("hostile", 0.5, 0)], which=0).via("regression: 'nan' in a .npy header raised tokenize.TokenError")
+@example(ops=[("hostile", 0.5, 0)], which=1)
+def test_fuzz_archive_members(kind, ops, which):
+    """Damage inside a well-formed archive (valid CRCs): the JSON tree or a .npy member of a
+    session, or a .npy member of an orbtool NPZ."""
+    member = _MEMBERS[kind][which % len(_MEMBERS[kind])]
+    data = _rezip(_valid(kind), lambda name, raw: mutate(raw, ops) if name == member else raw)
     d = Path(tempfile.mkdtemp(dir=_WORK))
-    (d / "s.orbsession").write_bytes(data)
+    (d / SOURCES[kind][1]).write_bytes(data)
     try:
-        check_reader(orbtool.load_session, d / "s.orbsession")
+        check_reader(SOURCES[kind][2], d / SOURCES[kind][1])
     finally:
         shutil.rmtree(d, ignore_errors=True)
 
