@@ -81,8 +81,11 @@ def _compiled(fit, case, geometry, swap):
         cache = fit._cache.setdefault("compiled", {})
         if key not in cache:
             cache[key] = model.compile()
+            cache[key].swap = dict(swap or {})
         return cache[key]
-    return model.compile(geometry)
+    cc = model.compile(geometry)
+    cc.swap = dict(swap or {})
+    return cc
 
 
 def _params(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
@@ -92,6 +95,10 @@ def _params(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
     full = cc.model.defaults()
     full.update(p)
     full["coupling_scale"] = full["coupling_scale"] * np.asarray(coupling_scale)
+    # an incoming element whose on-site offset the fit measured (it was in the family) keeps that offset
+    for old, new in (getattr(cc, "swap", None) or {}).items():
+        if f"shift_{new}" in p and new not in cc.model.species:
+            full[f"shift_{old}"] = p[f"shift_{new}"]
     first_species = {cc.model.elements[i] for i in np.flatnonzero(cc.first)}
     for el in first_species:
         full[f"shift_{el}"] = full[f"shift_{el}"] + np.asarray(onsite_shift)
