@@ -50,11 +50,22 @@ class Mechanism:
     verdict: str
     knobs: dict = field(default_factory=dict)
 
+    def orbital_groups(self) -> dict:
+        """Mean on-site energy and count per orbital kind ("Sn p", "S s", "Sn hybrid")."""
+        out: dict = {}
+        for label, e in zip(self.basis, self.onsite):
+            atom, orb = label.split(":")
+            kind = f"{atom.rstrip('0123456789')} {'hybrid' if orb == 'h' else orb[0]}"
+            tot, n = out.get(kind, (0.0, 0))
+            out[kind] = (tot + float(e), n + 1)
+        return {k: (tot / n, n) for k, (tot, n) in out.items()}
+
     def summary(self) -> str:
         lines = [f"Mechanism of the defect level in {self.case} ({self.orbitals} model)",
                  f"  defect level  {self.level:+.3f} ± {self.sigma:.3f} eV above the VBM "
                  f"({self.labels[self.defect_index]}), gap {self.cbm:.3f} eV: {self.verdict}",
-                 f"  dangling-orbital energies  {np.round(self.onsite, 3).tolist()} eV"]
+                 "  orbital energies (eV above the VBM): " + ", ".join(
+                     f"{k} ×{n} {e:+.2f}" for k, (e, n) in self.orbital_groups().items())]
         if self.couplings:
             i, j, v = self.couplings[0]
             lines.append(f"  strongest coupling  {self.basis[i]}–{self.basis[j]}: {v:+.3f} eV")
