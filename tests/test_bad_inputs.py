@@ -78,6 +78,8 @@ def test_bad_input(entry):
         assert str(Path(got.path)) in str(got)
         if "line" in entry:
             assert got.line == entry["line"] and f"line {entry['line']}" in str(got)
+    elif isinstance(got, (errors.SessionError, NoGapError)):
+        assert entry["args"][-1 if isinstance(got, NoGapError) else 0] in str(got), "message does not name the file"
 
 
 def test_corpus_is_large_small_and_complete():
