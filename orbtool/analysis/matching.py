@@ -148,7 +148,6 @@ def _find_shift(frame, yd, zd, zh, radius, rng):
     # per reference atom hold a representative unless the primitive cell has > 256 atoms of that element
     keep = np.argsort(np.linalg.norm(cands, axis=1).reshape(len(refs), -1), axis=1)[:, :256]
     cands = cands.reshape(len(refs), -1, 3)[np.arange(len(refs))[:, None], keep].reshape(-1, 3)
-    cands = np.vstack([np.zeros((1, 3)), cands])
     sub = rng.choice(n, size=min(n, 16), replace=False)
     pts = (yd[sub][None, :, :] - cands[:, None, :]).reshape(-1, 3)
     sub_scores = _score(frame, pts, np.tile(zd[sub], len(cands)), zh, radius).reshape(len(cands), -1).sum(1)
@@ -159,7 +158,7 @@ def _find_shift(frame, yd, zd, zh, radius, rng):
     for i in order:
         if sub_scores[i] < sub_scores[order[0]] - 3 or len(top) == 12:
             break
-        if all(np.linalg.norm(frame.mic(cands[i] - cands[j])) > radius for j in top):
+        if all(np.linalg.norm(frame.mic(cands[i] - cands[j])) > 0.5 * radius for j in top):
             top.append(int(i))
     probe = rng.choice(n, size=min(n, 400), replace=False)  # a larger sample settles the finalists
     full = np.array([_score(frame, yd[probe] - cands[i], zd[probe], zh, radius).sum() for i in top])
@@ -172,8 +171,10 @@ def _find_shift(frame, yd, zd, zh, radius, rng):
     refined = np.array(refined)
     rn = np.linalg.norm(refined, axis=1)
     order = np.argsort(rn, kind="stable")
-    alt = refined[order[1:]][rn[order[1:]] - rn[order[0]] < 0.05].reshape(-1, 3)
-    return refined[order[0]], alt
+    best = refined[order[0]]
+    alt = [refined[k] for k in order[1:] if rn[k] - rn[order[0]] < 0.05
+           and np.linalg.norm(frame.mic(refined[k] - best)) > radius]  # the same shift found twice is no rival
+    return best, np.array(alt).reshape(-1, 3)
 
 
 def _assign(frame, q, zd, zh, tolerance, forbid, species_penalty):
