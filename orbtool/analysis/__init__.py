@@ -11,6 +11,10 @@ import importlib
 _LAZY = {
     # geometry
     "locate_vacancy": "geometry", "VacancySite": "geometry", "Neighbour": "geometry",
+    "MissingAtom": "vacancy_site", "Substitution": "vacancy_site", "cluster_shells": "geometry",
+    "find_point_group": "pointgroup", "PointGroup": "pointgroup", "match_sites": "matching",
+    "SiteMatch": "matching", "site_neighbours": "periodic", "minimum_image": "periodic",
+    "symmetry_adapted_modes": "distortions",
     # states
     "band_edges": "states", "in_gap_states": "states", "BandEdges": "states", "DefectState": "states",
     "align": "alignment", "Alignment": "alignment",
@@ -36,7 +40,8 @@ def __getattr__(name: str):
         value = getattr(importlib.import_module(f"orbtool.analysis.{mod}"), name)
     except AttributeError:
         # the name may live in a sibling module; search the analysis modules once
-        for other in ("geometry", "states", "alignment", "density", "moments", "recursion", "character"):
+        for other in ("geometry", "vacancy_site", "states", "alignment", "density", "moments", "recursion",
+                      "character"):
             try:
                 m = importlib.import_module(f"orbtool.analysis.{other}")
             except ImportError:
