@@ -67,9 +67,10 @@ def _inspect(args) -> int:
         for k, v in info.items():
             if k == "grids":
                 for g in v:
-                    print(f"  grid {g['name'] or '(unnamed)'}: {'x'.join(map(str, g['shape']))} points, unit {g['unit']}, "
-                          f"cell {g['volume_A3']:.3f} Å^3, integral {g['integral']:.6g}, range [{g['min']:.4g}, {g['max']:.4g}]"
-                          + (f", atoms {g['atoms']}" if g["atoms"] else ""))
+                    shape = "x".join(map(str, g["shape"]))
+                    print(f"  grid {g['name'] or '(unnamed)'}: {shape} points, unit {g['unit']}, "
+                          f"cell {g['volume_A3']:.3f} Å^3, integral {g['integral']:.6g}, "
+                          f"range [{g['min']:.4g}, {g['max']:.4g}]" + (f", atoms {g['atoms']}" if g["atoms"] else ""))
             else:
                 print(f"  {k:<16} {v}")
     return 0

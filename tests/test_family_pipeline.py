@@ -51,7 +51,8 @@ def test_every_case_analysed_and_vacancy_found(family, analysis):
     for r in analysis.results:
         # the manifest's vacancy label names the removed sublattice; the locator must agree
         removed = r.site.element
-        expected = family[r.name].labels["anion"] if r.labels["vacancy"] == "V_anion" else family[r.name].labels["cation"]
+        labels = family[r.name].labels
+        expected = labels["anion"] if r.labels["vacancy"] == "V_anion" else labels["cation"]
         assert removed == expected, r.name
 
 
