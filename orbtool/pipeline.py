@@ -89,8 +89,10 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
     if fit is not None:
         texts += [fit.summary(), "", "Mechanism", "---------", fit.explain(), ""]
         try:
-            inv = fit.smallest_change_to_shallow()
-            texts += ["What would make it shallow? (smallest change per knob; model prediction)",
+            rep = _representative(res, fit)
+            inv = fit.smallest_change_to_shallow(case=rep.name if rep else None, n_grid=81)
+            texts += [f"What would make {rep.name if rep else 'it'} shallow? (smallest change per knob; "
+                      "model prediction)",
                       "---------------------------", *_inverse_lines(inv), ""]
         except OrbtoolError as exc:
             texts += [f"Inverse question not answered: {exc}", ""]
