@@ -94,6 +94,13 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
             texts += [f"What would make {rep.name if rep else 'it'} shallow? (smallest change per knob; "
                       "model prediction)",
                       "---------------------------", *_inverse_lines(inv), ""]
+            from .family import TOXIC_ELEMENTS
+            named = sorted({e for c in (inv if isinstance(inv, (list, tuple)) else [inv])
+                            for e in TOXIC_ELEMENTS if c.knob.startswith("swap:") and c.knob.endswith(f">{e}")})
+            if named:
+                texts += [f"Caution: suggested swaps involve toxic elements ({', '.join(named)}). A model "
+                          "suggestion is not a recommendation to make or handle such compounds; follow local "
+                          "regulations and licensed laboratory practice.", ""]
         except OrbtoolError as exc:
             texts += [f"Inverse question not answered: {exc}", ""]
     for key, dl in res.levels.items():
