@@ -19,15 +19,17 @@ files span exactly that box, so grid cell = structure cell.
 Every case folder gets:
 
 * ``POSCAR``                structure (ASE's VASP writer, Cartesian Å),
-* ``projections.npz``       orbtool BandProjections: every MO (Γ only, weight 1),
-                            energies eV, occupations, Löwdin weights per atom
-                            and per real spherical harmonic (s, py, pz, px),
-* ``pdos.npz``              orbtool ProjectedDOS: Löwdin-projected, l-resolved,
-                            Gaussian broadened (σ in ``engine.json``),
+* ``projections.proj.txt.gz``  orbtool BandProjections (plain text): every MO
+                            (Γ only, weight 1), energies eV, occupations, Löwdin
+                            weights per atom and real spherical harmonic (s, py, pz, px),
+* ``pdos.pdos.txt.gz``      orbtool ProjectedDOS (plain text): Löwdin-projected,
+                            l-resolved, Gaussian broadened (σ in ``engine.json``),
 * ``engine.json``           engine version, basis, functional, charge, spin,
                             total energy, MO energies of interest, timing,
 * ``state.cube``            the in-gap orbital (``vac`` only, to keep the fixtures small),
-* ``density.cube.gz``       total electron density (``host`` and ``vac``).
+* ``total/density.cube.gz`` total electron density (``host`` and ``vac``; all
+                            electrons, so its grid sum is NOT the electron count:
+                            1s cores are far narrower than the 0.19 Å spacing).
 
 Run ``python tests/external/generate.py`` (all cases, about 5–10 min on two
 cores) or ``--only host`` etc.; ``--out DIR`` writes elsewhere.
@@ -61,8 +63,9 @@ XC = "lda,vwn"
 GRID_LEVEL = 1
 CONV_TOL = 1e-9
 #: PDOS energy grid (eV) and Gaussian broadening σ (eV)
-PDOS_WINDOW = (-40.0, 25.0)
-PDOS_STEP = 0.05
+#: (covers Li 1s ≈ −51 eV, F 2s, F 2p, the gap and the lowest empty states)
+PDOS_WINDOW = (-60.0, 20.0)
+PDOS_STEP = 0.1
 PDOS_SIGMA = 0.15
 
 CASES = {
@@ -117,11 +120,13 @@ def _mol(atoms, charge, spin):
                  unit="Angstrom", basis=BASIS, charge=charge, spin=spin, verbose=0)
 
 
-def run_scf(atoms, charge: int, spin: int, chkfile: Path | None = None):
+def run_scf(atoms, charge: int, spin: int, chkfile: Path | None = None, guess: Path | None = None):
     """Kohn–Sham SCF of the cluster (RKS for closed shells, UKS otherwise).
 
     ``chkfile``: a pyscf checkpoint to start from (if it exists) and to
-    update; only a restart aid, the converged result does not depend on it.
+    update; ``guess``: another case's checkpoint to start from otherwise
+    (pyscf projects its density onto this molecule). Restart aids only: the
+    converged result does not depend on them.
     """
     from pyscf import dft
     mol = _mol(atoms, charge, spin)
@@ -129,11 +134,13 @@ def run_scf(atoms, charge: int, spin: int, chkfile: Path | None = None):
     mf.xc = XC
     mf.grids.level = GRID_LEVEL
     mf.conv_tol = CONV_TOL
+    dm0 = None
     if chkfile is not None:
-        if Path(chkfile).exists():
-            mf.init_guess = "chkfile"
+        start = chkfile if Path(chkfile).exists() else guess if guess is not None and Path(guess).exists() else None
+        if start is not None:
+            dm0 = mf.from_chk(str(start))
         mf.chkfile = str(chkfile)
-    mf.kernel()
+    mf.kernel(dm0)
     if not mf.converged:
         raise RuntimeError("SCF did not converge")
     return mf
@@ -194,7 +201,7 @@ def make_pdos(proj, meta):
     (factor 2), as :class:`orbtool.spectra.ProjectedDOS` documents.
     """
     from orbtool.spectra import ProjectedDOS
-    grid = np.arange(PDOS_WINDOW[0], PDOS_WINDOW[1] + PDOS_STEP / 2, PDOS_STEP)
+    grid = np.round(np.arange(PDOS_WINDOW[0], PDOS_WINDOW[1] + PDOS_STEP / 2, PDOS_STEP), 9)
     nspin = proj.nspin
     degeneracy = 2.0 if nspin == 1 else 1.0
     g = np.exp(-0.5 * ((grid[None, None, :] - proj.energies[:, 0, :, None]) / PDOS_SIGMA) ** 2)
@@ -256,13 +263,14 @@ def write_cubes(mf, folder: Path, which) -> dict:
         dm = mf.make_rdm1()
         if np.asarray(dm).ndim == 3:
             dm = dm[0] + dm[1]
-        path = folder / "density.cube"
+        # kept in a subfolder: a case folder holds the in-gap state grid only, so
+        # that the folder scan cannot mistake the total density for the state
+        (folder / "total").mkdir(exist_ok=True)
+        path = folder / "total" / "density.cube"
         rho = numint.eval_rho(mol, numint.eval_ao(mol, coords), dm)
         cc.write(rho.reshape(cc.nx, cc.ny, cc.nz), str(path), comment=f"total density (pyscf {XC}/{BASIS})")
         info["density_on_grid"] = float(rho.sum() * voxel)
-        with open(path, "rb") as src, gzip.open(str(path) + ".gz", "wb", compresslevel=9) as dst:
-            shutil.copyfileobj(src, dst)
-        path.unlink()
+        _gzip(path)
     return info
 
 
@@ -277,8 +285,11 @@ def generate(case: str, out: Path = DATA, cubes: bool = True, chkdir: Path | Non
     folder = out / case
     folder.mkdir(parents=True, exist_ok=True)
     t0 = time.perf_counter()
-    chk = None if chkdir is None else Path(chkdir) / f"{case}.chk"
-    mf = run_scf(atoms, spec["charge"], spec["spin"], chk)
+    chk = guess = None
+    if chkdir is not None:
+        chk = Path(chkdir) / f"{case}.chk"
+        guess = Path(chkdir) / ("vac.chk" if spec["vacancy"] else "host.chk")
+    mf = run_scf(atoms, spec["charge"], spec["spin"], chk, guess)
     t_scf = time.perf_counter() - t0
     e, o, _ = _spin_arrays(mf)
     meta = dict(engine="pyscf", engine_version=pyscf.__version__, basis=BASIS, xc=XC, case=case)
@@ -286,8 +297,7 @@ def generate(case: str, out: Path = DATA, cubes: bool = True, chkdir: Path | Non
     proj = make_projections(mf, atoms, weights, meta)
     pdos = make_pdos(proj, meta)
     ase.io.write(folder / "POSCAR", atoms, format="vasp", direct=False, sort=False)
-    _write(folder / "projections.npz", proj)
-    _write(folder / "pdos.npz", pdos)
+    write_spectra(folder, proj, pdos)
     t1 = time.perf_counter()
     info = write_cubes(mf, folder, spec["cubes"] if cubes else ())
     t_cube = time.perf_counter() - t1
@@ -295,7 +305,9 @@ def generate(case: str, out: Path = DATA, cubes: bool = True, chkdir: Path | Non
     lumo = [float(e[s][o[s] == 0].min() * HARTREE_TO_EV) for s in range(e.shape[0])]
     record = dict(meta, charge=spec["charge"], spin_2S=spec["spin"], breathe=spec["breathe"],
                   swap=spec["swap"], box_A=BOX, ngrid=NGRID, grid_level=GRID_LEVEL, conv_tol=CONV_TOL,
-                  d_nn_A=D_NN, n_electrons=int(mf.mol.nelectron), natoms=len(atoms),
+                  d_nn_A=D_NN, pdos_sigma_eV=PDOS_SIGMA, pdos_window_eV=PDOS_WINDOW, pdos_step_eV=PDOS_STEP,
+                  projection="Löwdin (symmetric orthogonalisation of the AO basis)",
+                  n_electrons=int(mf.mol.nelectron), natoms=len(atoms),
                   formula=atoms.get_chemical_formula(), removed_host_index=removed,
                   total_energy_eV=float(mf.e_tot * HARTREE_TO_EV), homo_eV=homo, lumo_eV=lumo,
                   timing_scf_s=round(t_scf, 1), timing_cubes_s=round(t_cube, 1), **info)
@@ -308,14 +320,29 @@ def generate(case: str, out: Path = DATA, cubes: bool = True, chkdir: Path | Non
     return record
 
 
-def _write(path: Path, obj) -> None:
-    """orbtool's own NPZ writers (``orbtool.io``)."""
+def _gzip(path: Path) -> Path:
+    """Compress ``path`` to ``path.gz`` (the readers open it transparently) and remove it."""
+    out = path.with_name(path.name + ".gz")
+    with open(path, "rb") as src, gzip.open(out, "wb", compresslevel=9) as dst:
+        shutil.copyfileobj(src, dst)
+    path.unlink()
+    return out
+
+
+def write_spectra(folder: Path, proj, pdos) -> None:
+    """Projections and PDOS in orbtool's plain-text layouts (``orbtool.io`` writers), gzipped.
+
+    Numbers are rounded first (energies to 1 µeV, Löwdin weights to 1e-6,
+    PDOS to 1e-5 states/eV) so the committed text stays small; the exact
+    engine values of the quantities the tests compare are in ``engine.json``.
+    """
+    from dataclasses import replace
+
     from orbtool.io import write_pdos, write_projections
-    from orbtool.spectra import ProjectedDOS
-    if isinstance(obj, ProjectedDOS):
-        write_pdos(path, obj, format="npz")
-    else:
-        write_projections(path, obj, format="npz")
+    proj = replace(proj, energies=np.round(proj.energies, 6), weights=np.round(proj.weights, 6))
+    pdos = replace(pdos, values=np.round(pdos.values, 5), total=np.round(pdos.total, 5))
+    _gzip(write_projections(folder / "projections.proj.txt", proj, format="orbtool-text"))
+    _gzip(write_pdos(folder / "pdos.pdos.txt", pdos, format="orbtool-text"))
 
 
 def main(argv=None) -> int:

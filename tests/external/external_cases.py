@@ -1,0 +1,25 @@
+"""Paths and helpers for the external-engine fixtures (``tests/external/data``)."""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+DATA = HERE / "data"
+#: the defect variants, each paired with the ``host`` run
+DEFECTS = ("vac", "vac_out5", "vac_in5")
+
+
+def engine_record(case: str, root: Path = DATA) -> dict:
+    """The engine's own numbers for one case (``engine.json`` written by generate.py)."""
+    return json.loads((Path(root) / case / "engine.json").read_text())
+
+
+def load_generator():
+    """generate.py as a module (loaded by path: the name ``generate`` is too common to import)."""
+    spec = importlib.util.spec_from_file_location("orbtool_external_generate", HERE / "generate.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
