@@ -9,7 +9,7 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 DATA = HERE / "data"
 #: the defect variants, each paired with the ``host`` run
-DEFECTS = ("vac", "vac_out5", "vac_in5")
+DEFECTS = ("vac", "vac_out5", "vac_in5", "vac_na")
 
 
 def engine_record(case: str, root: Path = DATA) -> dict:

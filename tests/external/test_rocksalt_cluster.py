@@ -58,6 +58,12 @@ def test_locate_vacancy_finds_the_removed_atom(name, engine, sites):
     assert site.point_group == "Oh"
 
 
+def test_cation_swap_is_reported_as_substitutions(sites):
+    subs = sites["vac_na"].substitutions
+    assert len(subs) == 6
+    assert all("Na" in str(s) for s in subs)
+
+
 @pytest.mark.parametrize("name", DEFECTS)
 def test_in_gap_state_energy_and_occupation_match_engine(name, engine, cases, sites):
     from orbtool.analysis import align, in_gap_states

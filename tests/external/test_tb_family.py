@@ -73,3 +73,21 @@ def test_breathing_prediction_through_geometry_edit(breathing_fit, sites, cases)
         via_edit = result.predict(geometry=edited, case="vac").level
         assert via_edit == pytest.approx(result.predict(case=n).level, abs=1e-6)
 
+
+@pytest.mark.xfail(strict=True, reason=(
+    "measured: the engine lowers the level by 0.43 eV when the six first-shell Li become Na "
+    "(vac_na − vac, host scale); the hybrid model fitted on the breathing variants predicts +0.28 eV "
+    "(the sp cluster +0.20 eV), because the free-atom LDA term values put Na 3s/3p above Li 2s/2p "
+    "(+0.06/+0.35 eV) while Harrison's couplings do not depend on the element. Whatever lowers the "
+    "engine's level (presumably the more diffuse Na orbitals squeezed to the Li–F distance) is outside a "
+    "term-value + universal-coupling model; fitting a Na on-site shift to the one Na case would only "
+    "restate it."))
+def test_cation_swap_prediction(cases, sites, breathing_fit):
+    """Chemistry knob: predict the first-shell Li → Na swap with the model fitted on the breathing
+    variants only, against the engine's own shift (vac_na − vac)."""
+    result, dft = breathing_fit
+    na = _level(cases["vac_na"], sites["vac_na"], "vac_na").above_vbm
+    d_dft = na - dft["vac"]
+    d_model = result.predict(case="vac", swap={"Li": "Na"}).level - result.predict(case="vac").level
+    assert np.sign(d_model) == np.sign(d_dft), (d_dft, d_model)
+    assert abs(d_model - d_dft) < 0.15, (d_dft, d_model)
