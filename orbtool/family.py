@@ -378,15 +378,18 @@ class FamilyAnalysis:
 
     # ---------------------------------------------------------------- trends
     def trends(self) -> dict:
-        """Level depth against every numeric descriptor: Pearson r over the
+        """Level depth against every geometry descriptor: Pearson r over the
         cases with a defect state (n ≥ 3), and, when a shared fit exists, the
         model's split of the level change into a structure and a chemistry
         part (see :meth:`knob_effects`)."""
         rows = [r for r in self.table() if r.get("above_vbm") is not None]
         out: dict[str, Any] = {"n": len(rows), "correlation": {}}
+        geometry_keys = set()
+        for r in self.results:
+            geometry_keys.update(r.descriptors)
         if len(rows) >= 3:
             y = np.array([r["above_vbm"] for r in rows])
-            for k in rows[0]:
+            for k in sorted(geometry_keys & set(rows[0])):
                 vals = [r.get(k) for r in rows]
                 if k in ("above_vbm", "below_cbm", "charge") or not all(
                         isinstance(v, float) for v in vals):

@@ -16,7 +16,7 @@ _CSS = """
 body{font-family:'DejaVu Sans',sans-serif;color:#202033;background:#fbfaf7;margin:2em auto;max-width:1100px;
 line-height:1.45}
 h1{font-size:1.6em;margin-bottom:.2em} h2{font-size:1.2em;border-bottom:1px solid #e4e1d8;padding-bottom:.2em;
-margin-top:1.6em} pre{background:#f3f1ea;padding:.8em;overflow-x:auto;font-size:.85em}
+margin-top:1.6em} pre{background:#f3f1ea;padding:.8em;overflow-x:auto;font-size:.85em;white-space:pre-wrap}
 table.t{border-collapse:collapse;font-size:.8em} table.t td,table.t th{border:1px solid #e4e1d8;padding:2px 6px;
 text-align:right} table.t th{background:#efece3} .caution{border-left:5px solid #7a2614;background:#f7ece8;
 padding:.6em 1em;margin:1em 0} .note{border-left:5px solid #1b5e8a;background:#eaf1f6;padding:.6em 1em}
@@ -38,11 +38,25 @@ def _fmt(v):
     return html.escape(str(v))
 
 
+def _display_path(path) -> str:
+    """A path as the user would type it: relative to the working folder when
+    inside it, otherwise just its last two parts (reports travel; machine paths
+    should not)."""
+    if not path:
+        return ""
+    from pathlib import Path
+    p = Path(path)
+    try:
+        return str(p.resolve().relative_to(Path.cwd().resolve()))
+    except ValueError:
+        return str(Path(*p.parts[-2:]))
+
+
 def _table(rows):
     keys = [k for k in _TABLE_KEYS if any(k in r for r in rows)]
     head = "".join(f"<th>{html.escape(k.replace('_', ' '))}</th>" for k in keys)
     body = "".join("<tr>" + "".join(f"<td>{_fmt(r.get(k))}</td>" for k in keys) + "</tr>" for r in rows)
-    return f"<table class='t'><tr>{head}</tr>{body}</table>"
+    return f"<div style='overflow-x:auto'><table class='t'><tr>{head}</tr>{body}</table></div>"
 
 
 def _bokeh_parts(fam, res, fit, rep):
@@ -58,7 +72,10 @@ def _bokeh_parts(fam, res, fit, rep):
     figs["board"] = board[0] if isinstance(board, tuple) else board
     if fit is not None and rep is not None:
         pred = fit.predict(case=rep.name)
-        data = views.level_diagram_data(pred)
+        from .mechanism import mechanism
+        groups = mechanism(fit, rep.name, knobs={"none": 0.0}).orbital_groups()
+        dangling = min((e for e, _ in groups.values()), key=lambda e: abs(e - pred.level))
+        data = views.level_diagram_data(pred, dangling=dangling)
         cbm = pred.cbm if math.isfinite(pred.cbm) else pred.level + 1
         figs["levels"] = views.level_diagram(data, y_range=(-2.0, cbm + 1.5),
                                              title=f"{rep.name}: fitted levels")
@@ -67,7 +84,8 @@ def _bokeh_parts(fam, res, fit, rep):
         if case.defect_pdos is not None and rep.site is not None:
             from .analysis import align
             picks = views.channel_choices(case.defect_pdos, rep.site)
-            first = {k: v for k, v in picks.items() if "shell 1" in k or k == "total"} or dict(list(picks.items())[:3])
+            first = {k: v for k, v in picks.items() if k == "total" or k in ("shell 1 · s", "shell 1 · p")}
+            first = first or dict(list(picks.items())[:3])
             edges = rep.state.edges if rep.state is not None else None
             shift = align(case, rep.site).shift
             vbm = edges.vbm if edges is not None else 0.0
@@ -95,7 +113,7 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str
         res.notes.append(f"interactive figures skipped: {type(exc).__name__}: {exc}")
     parts.append(script + "</head><body>")
     parts.append(f"<h1>orbtool report — {html.escape(fam.name)}</h1>")
-    parts.append(f"<p>{len(fam)} cases; manifest <code>{html.escape(str(fam.source or ''))}</code>.</p>")
+    parts.append(f"<p>{len(fam)} cases; manifest <code>{html.escape(_display_path(fam.source))}</code>.</p>")
     if demo:
         parts.append("<div class='note'><b>Demo data.</b> This family is <b>model data</b> computed with orbtool's own "
                      "supercell tight-binding generator for <b>invented compounds</b>; it demonstrates the workflow "
