@@ -20,8 +20,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+import orbtool
+
 pyscf = pytest.importorskip("pyscf")
-io = pytest.importorskip("orbtool.io")
 
 # water at its experimental geometry (O–H 0.9572 Å, H–O–H 104.52°; NIST CCCBDB — from memory)
 WATER = "O 0 0 0.1173; H 0 0.7572 -0.4692; H 0 -0.7572 -0.4692"
@@ -48,7 +49,7 @@ def water_cubes(tmp_path_factory):
 @pytest.mark.slow
 def test_density_integrates_to_engine_electron_count(water_cubes):
     mol, out = water_cubes
-    grid = io.read_grid(out / "water_density.cube", cache=False, quantity="density")
+    grid = orbtool.read_grid(out / "water_density.cube", cache=False, quantity="density")
     assert grid.unit == "e/Å^3"
     n = grid.integrate()
     # engine's electron count (pyscf mol.nelectron = 8 valence electrons); 1 % tolerance from issue 3
@@ -59,7 +60,7 @@ def test_density_integrates_to_engine_electron_count(water_cubes):
 @pytest.mark.slow
 def test_orbital_norm_is_one(water_cubes):
     mol, out = water_cubes
-    grid = io.read_grid(out / "water_homo.cube", cache=False)  # sign changes → read as an orbital
+    grid = orbtool.read_grid(out / "water_homo.cube", cache=False)  # sign changes → read as an orbital
     assert grid.unit == "Å^-3/2"
     # Kohn–Sham orbitals are orthonormal in the engine: ∫|ψ|² = 1; 1 % tolerance from issue 3
     assert grid.integrate(square=True) == pytest.approx(1.0, rel=0.01)
@@ -72,7 +73,7 @@ def test_cube_geometry_matches_engine(water_cubes):
     """Atom positions and box read back in Å equal the engine's Bohr values × Bohr radius."""
     from pyscf.data.nist import BOHR
     mol, out = water_cubes
-    grid = io.read_grid(out / "water_density.cube", cache=False)
+    grid = orbtool.read_grid(out / "water_density.cube", cache=False)
     np.testing.assert_allclose(grid.atoms.get_positions(), mol.atom_coords() * BOHR, atol=1e-5)
     # pyscf's box spans the atoms plus 5 Bohr on each side with 56 points including both
     # end points, so the periodic cell orbtool reports is that span × 56/55 (pyscf cubegen source)
