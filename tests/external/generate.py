@@ -31,8 +31,10 @@ Every case folder gets:
                             electrons, so its grid sum is NOT the electron count:
                             1s cores are far narrower than the 0.19 Å spacing).
 
-Run ``python tests/external/generate.py`` (all cases, about 5–10 min on two
-cores) or ``--only host`` etc.; ``--out DIR`` writes elsewhere.
+Run ``python tests/external/generate.py`` (all cases: about one CPU-minute per
+case on two idle cores, ``vac_na`` longer; several times that on a busy
+machine) or ``--only host`` etc.; ``--out DIR`` writes elsewhere, ``--chk DIR``
+keeps pyscf checkpoints to restart from.
 """
 
 from __future__ import annotations
