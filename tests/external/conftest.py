@@ -9,7 +9,7 @@ on first use and kept for the session.
 from __future__ import annotations
 
 import pytest
-from external_cases import DATA, engine_record
+from external_cases import DATA, engine_record, host_of
 
 
 class _Lazy(dict):
@@ -35,7 +35,7 @@ def cases():
     io = pytest.importorskip("orbtool.io")
     if not hasattr(io, "load_case"):
         pytest.skip("orbtool.io.load_case not available yet")
-    return _Lazy(lambda c: io.load_case(DATA / c, host=DATA / "host", charge=engine_record(c)["charge"], name=c,
+    return _Lazy(lambda c: io.load_case(DATA / c, host=DATA / host_of(c), charge=engine_record(c)["charge"], name=c,
                                         labels={"variant": c}))
 
 

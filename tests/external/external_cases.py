@@ -8,8 +8,15 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 DATA = HERE / "data"
-#: the defect variants, each paired with the ``host`` run
+#: the rocksalt-cluster defect variants, each paired with the ``host`` run
 DEFECTS = ("vac", "vac_out5", "vac_in5", "vac_na")
+#: the Si-vacancy variants, paired with ``si_host``
+SI_DEFECTS = ("si_vac", "si_vac_out5", "si_vac_in5")
+
+
+def host_of(case: str) -> str:
+    """Name of the host run a defect case is compared with."""
+    return "si_host" if case.startswith("si_") else "host"
 
 
 def engine_record(case: str, root: Path = DATA) -> dict:

@@ -76,9 +76,23 @@ CASES = {
     "vac_out5": dict(vacancy=True, breathe=+0.05, swap=None, charge=1, spin=1, cubes=()),
     "vac_in5": dict(vacancy=True, breathe=-0.05, swap=None, charge=1, spin=1, cubes=()),
     "vac_na": dict(vacancy=True, breathe=0.0, swap="Na", charge=1, spin=1, cubes=()),
+    # a covalent, tetrahedral site: Si(SiH3)4 and the Si vacancy left in it (four SiH3 groups
+    # whose dangling hybrids point at the empty site, the defect molecule of Coulson & Kearsley);
+    # charge +2 leaves the a1 combination doubly occupied and the t2 set empty (closed shell)
+    "si_host": dict(family="si", vacancy=False, breathe=0.0, swap=None, charge=0, spin=0, cubes=()),
+    "si_vac": dict(family="si", vacancy=True, breathe=0.0, swap=None, charge=2, spin=0, cubes=(), state="lumo"),
+    "si_vac_out5": dict(family="si", vacancy=True, breathe=+0.05, swap=None, charge=2, spin=0, cubes=(),
+                        state="lumo"),
+    "si_vac_in5": dict(family="si", vacancy=True, breathe=-0.05, swap=None, charge=2, spin=0, cubes=(),
+                       state="lumo"),
 }
-#: the case CI regenerates (cheapest: closed shell)
-SMALLEST = "host"
+#: host run of each defect case
+HOST_OF = {c: ("si_host" if c.startswith("si_") else "host") for c in CASES}
+#: Si–Si bond of diamond Si (a = 5.431 Å, d = a√3/4) and a typical Si–H bond, Å (from memory)
+D_SISI = 2.3517
+D_SIH = 1.48
+#: the cases CI regenerates: the smallest of each family (closed shells)
+SMALLEST = ("si_vac", "host")
 #: orbital columns written, in orbtool's order (m = -l..l)
 ORBITALS = ("s", "py", "pz", "px")
 
@@ -96,6 +110,8 @@ def build_cluster(case: str):
     from ase import Atoms
 
     spec = CASES[case]
+    if spec.get("family") == "si":
+        return _silicon_cluster(spec)
     idx = np.array([(i, j, k) for i in range(3) for j in range(3) for k in range(3)])
     rel = (idx - 1) * D_NN
     # sites with odd i+j+k carry F, so the centre (1,1,1) is an anion site
@@ -114,6 +130,26 @@ def build_cluster(case: str):
         removed = centre
     atoms = Atoms(symbols=list(symbols[keep]), positions=rel[keep] + BOX / 2, cell=np.eye(3) * BOX, pbc=False)
     return atoms, removed
+
+
+def _silicon_cluster(spec):
+    """Si(SiH3)4 on diamond-lattice bond directions; the vacancy removes the central Si (index 0)
+    and the breathing moves the four SiH3 groups rigidly along their bonds."""
+    from ase import Atoms
+    t = np.array([[1, 1, 1], [1, -1, -1], [-1, 1, -1], [-1, -1, 1]]) / np.sqrt(3.0)
+    symbols, pos = ["Si"], [np.zeros(3)]
+    for i in range(4):
+        si = t[i] * D_SISI * (1.0 + spec["breathe"])
+        symbols.append("Si")
+        pos.append(si)
+        for j in range(4):
+            if j != i:  # the Si's other three diamond bonds, capped with H
+                symbols.append("H")
+                pos.append(si - t[j] * D_SIH)
+    pos = np.array(pos) + BOX / 2
+    keep = slice(1, None) if spec["vacancy"] else slice(None)
+    atoms = Atoms(symbols=symbols[keep], positions=pos[keep], cell=np.eye(3) * BOX, pbc=False)
+    return atoms, (0 if spec["vacancy"] else None)
 
 
 def _mol(atoms, charge, spin):
@@ -225,11 +261,15 @@ def make_pdos(proj, meta):
                         meta=dict(meta, broadening_sigma_eV=PDOS_SIGMA, projection="Löwdin"))
 
 
-def in_gap_orbital(mf):
-    """(spin, index) of the highest occupied MO of the open-shell cluster:
-    the singly occupied vacancy orbital (majority spin)."""
+def in_gap_orbital(mf, which: str = "homo"):
+    """(spin, index) of the vacancy orbital: the highest occupied MO (the singly
+    occupied F-centre orbital, majority spin) or, with ``which="lumo"``, the
+    lowest empty one (the first of the Si vacancy's empty t2 set; the a1
+    combination below it falls among the host's occupied states)."""
     e, o, _ = _spin_arrays(mf)
     s = 0
+    if which == "lumo":
+        return s, int(np.flatnonzero(o[s] == 0).min())
     return s, int(np.flatnonzero(o[s] > 0).max())
 
 
@@ -242,7 +282,7 @@ def _cube(mol):
     return cubegen.Cube(mol, NGRID, NGRID, NGRID, origin=np.zeros(3), extent=extent)
 
 
-def write_cubes(mf, folder: Path, which) -> dict:
+def write_cubes(mf, folder: Path, which, state: str = "homo") -> dict:
     """Write the in-gap orbital and/or total density with pyscf.tools.cubegen."""
     from pyscf.dft import numint
     mol = mf.mol
@@ -251,7 +291,7 @@ def write_cubes(mf, folder: Path, which) -> dict:
     info = {}
     voxel = np.prod(np.diag(cc.box)) / np.prod([cc.nx - 1, cc.ny - 1, cc.nz - 1])  # Bohr³
     if "state" in which:
-        s, i = in_gap_orbital(mf)
+        s, i = in_gap_orbital(mf, state)
         _, _, c = _spin_arrays(mf)
         coeff = c[s][:, i].copy()
         ao = numint.eval_ao(mol, coords)
@@ -290,7 +330,8 @@ def generate(case: str, out: Path = DATA, cubes: bool = True, chkdir: Path | Non
     chk = guess = None
     if chkdir is not None:
         chk = Path(chkdir) / f"{case}.chk"
-        guess = Path(chkdir) / ("vac.chk" if spec["vacancy"] else "host.chk")
+        guess = Path(chkdir) / ((("si_" if spec.get("family") == "si" else "") + "vac.chk") if spec["vacancy"]
+                                else HOST_OF.get(case, case) + ".chk")
     mf = run_scf(atoms, spec["charge"], spec["spin"], chk, guess)
     t_scf = time.perf_counter() - t0
     e, o, _ = _spin_arrays(mf)
@@ -301,7 +342,7 @@ def generate(case: str, out: Path = DATA, cubes: bool = True, chkdir: Path | Non
     ase.io.write(folder / "POSCAR", atoms, format="vasp", direct=False, sort=False)
     write_spectra(folder, proj, pdos)
     t1 = time.perf_counter()
-    info = write_cubes(mf, folder, spec["cubes"] if cubes else ())
+    info = write_cubes(mf, folder, spec["cubes"] if cubes else (), spec.get("state", "homo"))
     t_cube = time.perf_counter() - t1
     homo = [float(e[s][o[s] > 0].max() * HARTREE_TO_EV) for s in range(e.shape[0])]
     lumo = [float(e[s][o[s] == 0].min() * HARTREE_TO_EV) for s in range(e.shape[0])]
@@ -314,7 +355,7 @@ def generate(case: str, out: Path = DATA, cubes: bool = True, chkdir: Path | Non
                   total_energy_eV=float(mf.e_tot * HARTREE_TO_EV), homo_eV=homo, lumo_eV=lumo,
                   timing_scf_s=round(t_scf, 1), timing_cubes_s=round(t_cube, 1), **info)
     if spec["vacancy"]:
-        s, i = in_gap_orbital(mf)
+        s, i = in_gap_orbital(mf, spec.get("state", "homo"))
         record.update(state_spin=s, state_index=i, state_energy_eV=float(e[s][i] * HARTREE_TO_EV),
                       state_occupation=float(o[s][i]),
                       state_lowdin_atoms=weights[s, 0, i].sum(axis=1).round(5).tolist())

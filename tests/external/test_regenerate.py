@@ -10,12 +10,12 @@ from external_cases import DATA, engine_record, load_generator
 
 
 @pytest.mark.slow
-def test_smallest_case_regenerates_to_the_committed_numbers(tmp_path):
+@pytest.mark.parametrize("case", load_generator().SMALLEST)
+def test_smallest_case_regenerates_to_the_committed_numbers(case, tmp_path):
     pytest.importorskip("pyscf")
     from orbtool.io import read_projections
 
     gen = load_generator()
-    case = gen.SMALLEST
     ref = engine_record(case)
     new = gen.generate(case, out=tmp_path, cubes=False)
     # same recipe as the committed run

@@ -36,8 +36,11 @@ def test_fixtures_are_compact_and_record_the_engine(engine):
     """Issue 9: fixtures ≤ 15 MB, with the engine version that made them."""
     size = sum(f.stat().st_size for f in DATA.rglob("*") if f.is_file())
     assert size <= 15 * 2 ** 20, f"fixtures are {size / 2 ** 20:.1f} MB"
-    for rec in engine.values():
-        assert rec["engine"] == "pyscf" and rec["engine_version"]
+    folders = sorted(d.name for d in DATA.iterdir() if d.is_dir())
+    assert set(DEFECTS) | {"host"} <= set(folders)
+    for name in folders:
+        rec = engine[name]
+        assert rec["engine"] == "pyscf" and rec["engine_version"] and rec["case"] == name
         assert rec["basis"] and rec["xc"]
 
 
