@@ -21,7 +21,6 @@ import pytest
 from ase.build import bulk
 from ase.geometry import get_distances
 from ase.io import read, write
-from ase.units import Bohr
 
 import orbtool
 from orbtool.analysis import in_gap_states, locate_vacancy
