@@ -65,6 +65,20 @@ class CaseAnalysis:
     def ok(self) -> bool:
         return self.error is None
 
+    def summary(self) -> str:
+        """The case's result in a few lines, with every note (guesses included)."""
+        head = f"{self.name} (q = {self.charge:+d}): "
+        if not self.ok:
+            return head + f"not analysed — {self.error}"
+        lines = [head + f"vacancy of {self.site.element}, {len(self.site.first_shell)} first neighbours, "
+                 f"point group {self.site.point_group}; {len(self.states)} in-gap state(s)"]
+        if self.state is not None:
+            s = self.state
+            lines.append(f"  defect state  {s.above_vbm:+.3f} eV above the VBM, {s.below_cbm:.3f} eV below the CBM, "
+                         f"occupation {s.occupation:.2f}, first shell {s.shell_fractions.get(1, 0.0):.0%}")
+        lines += [f"  note: {n}" for n in self.notes]
+        return "\n".join(lines)
+
 
 def _first_shell_moments(case, site) -> dict:
     """Change of the first-shell PDOS moments host → defect (Cyrot-Lackmann moments theorem)."""
@@ -327,6 +341,10 @@ class FamilyAnalysis:
                 row["n_first_shell"] = len(r.site.first_shell)
                 for k, v in r.descriptors.items():
                     row[k] = _num(v)
+            if r.moments:
+                # host → defect change of the first-shell PDOS moments (Cyrot-Lackmann moments theorem)
+                row["shell1_centre_shift"] = _num(r.moments.get("mean_centre_shift"))
+                row["shell1_variance_change"] = _num(r.moments.get("mean_variance_change"))
             row["n_in_gap"] = len(r.states)
             s = r.state
             if s is not None:

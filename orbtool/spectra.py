@@ -62,6 +62,21 @@ class Channel(NamedTuple):
         return f"{at}:{self.orbital}:{'up' if self.spin == 0 else 'down'}"
 
 
+def _meta_lines(meta: dict) -> list[str]:
+    """What a reader decided or guessed (format, conventions, notes), for summaries."""
+    out = []
+    if "format" in meta or "format_reason" in meta:
+        out.append(f"  format        {meta.get('format', '?')}"
+                   + (f": {meta['format_reason']}" if meta.get("format_reason") else ""))
+    for key, value in meta.items():
+        if key in ("format", "format_reason"):
+            continue
+        if key.startswith("note") or key.endswith("guess") or key.endswith("reason"):
+            vals = value if isinstance(value, (list, tuple)) else [value]
+            out += [f"  note: {v}" for v in vals if v]
+    return out
+
+
 @dataclass(frozen=True, eq=False)
 class ProjectedDOS:
     """Density of states projected on atoms and orbitals.
@@ -194,6 +209,17 @@ class ProjectedDOS:
             return "l"
         return "atom"
 
+    def summary(self) -> str:
+        """What the PDOS holds and how it was read."""
+        lines = [f"ProjectedDOS from {self.source or '<memory>'}",
+                 f"  energies      {self.energies[0]:.3f} … {self.energies[-1]:.3f} eV, {self.energies.size} points "
+                 f"(step {self.step:.4f} eV)",
+                 f"  channels      {len(self.channels)} on {len(self.atom_indices)} atoms, "
+                 f"{self.orbital_resolution()}-resolved, nspin = {self.nspin}",
+                 f"  Fermi level   {'—' if self.fermi is None else f'{self.fermi:.4f} eV'}",
+                 f"  total DOS     {'yes' if self.total is not None else 'no'}"]
+        return "\n".join(lines + _meta_lines(self.meta))
+
     def integrate(self, values: np.ndarray, emin: float | None = None, emax: float | None = None) -> float:
         """Trapezoid integral of a (nE,) curve on this energy grid between
         ``emin`` and ``emax`` (eV): states."""
@@ -308,6 +334,16 @@ class BandProjections:
     def max_occupation(self) -> float:
         """Electrons a state can hold: 2 without spin polarisation, 1 with."""
         return 2.0 if self.nspin == 1 else 1.0
+
+    def summary(self) -> str:
+        """What the projections hold and how they were read."""
+        lines = [f"BandProjections from {self.source or '<memory>'}",
+                 f"  k-points      {self.nkpoints}, bands {self.nbands}, spins {self.nspin}, atoms {self.natoms}",
+                 f"  orbitals      {' '.join(self.orbitals)}",
+                 f"  energies      {float(self.energies.min()):.3f} … {float(self.energies.max()):.3f} eV",
+                 f"  occupations   {'yes' if self.occupations is not None else 'no (band edges need them)'}",
+                 f"  Fermi level   {'—' if self.fermi is None else f'{self.fermi:.4f} eV'}"]
+        return "\n".join(lines + _meta_lines(self.meta))
 
     def orbital_ls(self) -> np.ndarray:
         """Angular momentum of each orbital column, shape (norb,)."""

@@ -280,6 +280,12 @@ def neighbour_moments(case, site=None, *, window=None, alignment=None, shell: in
             for s in range(dp.nspin):
                 if not hp.mask(atoms=int(hidx), spin=s, **crit).any():
                     continue                   # channel absent in the host
+                if not (np.any(hp.select(atoms=int(hidx), spin=s, **crit))
+                        or np.any(dp.select(atoms=int(nb.index), spin=s, **crit))):
+                    note = f"{name} channels are empty in both cells (not in the basis): skipped"
+                    if note not in notes:
+                        notes.append(note)
+                    continue
                 h = channel_moments(hp, window, atoms=int(hidx), spin=s, **crit)
                 d = channel_moments(dp, window, shift=shift, atoms=int(nb.index), spin=s, **crit)
                 hr = dr = None
