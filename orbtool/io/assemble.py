@@ -56,6 +56,8 @@ def _grid_role(f: Path, fmt: str) -> tuple[str, str]:
         return "state", f"{f.name}: density/orbital of a chosen state (name)"
     if fmt == "chgcar" and ("CHGCAR" in up or up == "CHG"):
         return "density", f"{f.name}: total charge density (name)"
+    if any(w in up for w in ("DENSITY", "RHO", "CHARGE", "CHGCAR")):
+        return "density", f"{f.name}: total charge density (name)"
     return "state", f"{f.name}: grid of unknown role, guessed to be the in-gap state"
 
 
