@@ -113,10 +113,18 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
     folder.write_text("fit_summary.txt", "\n".join(texts) + "\n")
     if figures:
         _figures(folder, fam, res, fit, quiet)
-    from .report import family_report
+    from .report import case_report, family_report
     folder.write_text("report.html", family_report(fam, res, fit, trends, demo=demo))
+    rep = _representative(res, fit)
+    if rep is not None:  # one case report (each embeds bokeh, ~4 MB): the representative case
+        folder.write_text(f"report_{_safe(rep.name)}.html", case_report(fam, res, rep.name, fit, demo=demo))
     _say(quiet, f"wrote {len(folder.written)} files to {folder.root} in {time.perf_counter() - t0:.1f} s")
     return folder.root
+
+
+def _safe(name: str) -> str:
+    """A case name usable as a file name."""
+    return "".join(ch if ch.isalnum() or ch in "-_+." else "_" for ch in name)
 
 
 def _inverse_lines(changes) -> list[str]:

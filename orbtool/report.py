@@ -3,6 +3,9 @@
 :func:`family_report` — the family table, the level-depth board, the fit and
 its explanation, transition levels with SRH factors, a level diagram and a
 PDOS overlay of the representative case, and the cautions.
+:func:`case_report` — one case: the vacancy and its shells, the in-gap
+states and their character, the fitted levels, the PDOS, its levels and SRH
+factor, the cautions.
 """
 
 from __future__ import annotations
@@ -10,7 +13,7 @@ from __future__ import annotations
 import html
 import math
 
-__all__ = ["family_report"]
+__all__ = ["family_report", "case_report"]
 
 _CSS = """
 body{font-family:'DejaVu Sans',sans-serif;color:#202033;background:#fbfaf7;margin:2em auto;max-width:1100px;
@@ -146,4 +149,55 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str
                      "".join(f"<li>{html.escape(n)}</li>" for n in res.notes) + "</ul>")
     parts.append("<p style='font-size:.8em;color:#8a8a80'>Written by orbtool. Figures for print are in "
                  "<code>figures/</code> beside this file.</p></body></html>")
+    return "\n".join(parts)
+
+
+def case_report(fam, res, name: str, fit=None, *, demo: bool = False) -> str:
+    """The HTML text of a one-case report (inline bokeh; no network needed)."""
+    from bokeh.embed import components
+    from bokeh.resources import INLINE
+
+    from .pipeline import MODEL_CAUTION, toxic_caution
+    r = res[name]
+    parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>orbtool report: "
+             f"{html.escape(name)}</title><style>{_CSS}</style>{INLINE.render()}"]
+    divs = {}
+    if r.ok:
+        try:
+            from . import views
+            figs = {}
+            if fit is not None and name in res.fit_cases:
+                pred = fit.predict(case=name)
+                figs["levels"] = views.level_diagram(views.level_diagram_data(pred), y_range=(-2.0, pred.cbm + 1.5
+                                                     if math.isfinite(pred.cbm) else pred.level + 2),
+                                                     title=f"{name}: fitted levels")
+            script, divs = components(figs) if figs else ("", {})
+        except Exception as exc:  # a figure must never cost the user the report
+            script, divs = "", {}
+            r.notes.append(f"interactive figures skipped: {type(exc).__name__}: {exc}")
+    else:
+        script = ""
+    parts.append(script + "</head><body>")
+    parts.append(f"<h1>orbtool report — {html.escape(name)}</h1>")
+    if demo:
+        parts.append("<div class='note'><b>Demo data.</b> Model data for an invented compound (orbtool's own "
+                     "tight-binding generator); it demonstrates the workflow only.</div>")
+    parts.append(f"<div class='caution'><b>Caution.</b> {html.escape(MODEL_CAUTION)}</div>")
+    case = fam[name]
+    tox = toxic_caution([e for e in sorted(set(case.defect.get_chemical_symbols()))
+                         if e in __import__("orbtool.family", fromlist=["TOXIC_ELEMENTS"]).TOXIC_ELEMENTS])
+    if tox:
+        parts.append(f"<div class='caution'><b>Toxic elements.</b> {html.escape(tox)}</div>")
+    parts.append("<h2>Result</h2><pre>" + html.escape(r.summary()) + "</pre>")
+    if r.site is not None:
+        parts.append("<h2>Vacancy and neighbour shells</h2><pre>" + html.escape(r.site.summary()) + "</pre>")
+    for k, st in enumerate(r.states):
+        parts.append(f"<h2>In-gap state {k + 1}</h2><pre>" + html.escape(st.summary()) + "</pre>")
+    if "levels" in divs:
+        parts.append("<h2>Fitted cluster levels</h2>" + divs["levels"])
+    key = r.labels.get("defect") or name
+    if key in res.levels:
+        parts.append("<h2>Levels and SRH factor</h2><pre>" + html.escape(res.levels[key].summary()) + "</pre>")
+    parts.append("<h2>What was read</h2><pre>" + html.escape(case.summary()) + "</pre>")
+    parts.append("</body></html>")
     return "\n".join(parts)
