@@ -70,6 +70,7 @@ class App:
     widget : ipywidgets.Tab  the app (displaying the App displays it).
     case, analysis : the case shown and its :class:`orbtool.family.CaseAnalysis`.
     structure, pdos, levels, board : the component views (None when not available).
+    session : :class:`orbtool.widgets.state.SessionBar`  save / restore of the analysis.
     """
 
     def __init__(self, case_or_family=None, *, fit=None, analysis=None):
@@ -86,7 +87,10 @@ class App:
         self.tabs = w.Tab(children=[self.panes[t] for t in _TABS])
         for i, t in enumerate(_TABS):
             self.tabs.set_title(i, t)
-        self.widget = w.VBox([self.header, self.tabs])
+        from .state import SessionBar
+
+        self.session = SessionBar(self)
+        self.widget = w.VBox([self.header, self.tabs, self.session.widget])
         self.widget.add_class("orbtool-app")
         if case_or_family is not None:
             if isinstance(case_or_family, (str, Path)):

@@ -1,0 +1,316 @@
+"""Save and restore what the app's user has set up, through :mod:`orbtool.session`.
+
+Widgets stay thin: :func:`app_state` collects the state of an :class:`~orbtool.widgets.App`
+into a plain dict and :func:`apply_state` sets it back, both testable without a
+browser. :class:`SessionBar` is the small path box + "Save" / "Restore" panel
+the app shows; every failure becomes a message in its status line and the
+app keeps what it showed.
+
+Layout of the saved dict (``content["app"]`` of the session file, version
+:data:`STATE_VERSION`)::
+
+    {"state_version": 1,
+     "source": {"path": text of the loader's path box, "origin": the data's own source path},
+     "case": name of the case shown,
+     "tab": index of the open tab,
+     "levels": {"breathing", "mode", "amplitude", "coupling_scale", "onsite_shift", "swap"},
+     "pdos": {"channels": [...], "window": (lo, hi)},
+     "structure": {"isovalue", "only_near", "radius"},
+     "board": {"x", "y"}}
+
+and ``content["data"]`` holds the loaded object itself (DefectCase, Family,
+ProjectedDOS or Grid), so a restore works even when the folder has moved.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import ipywidgets as w
+
+from ..errors import SessionError
+from ._common import attempt, message_html
+
+__all__ = ["app_state", "apply_state", "save_app", "restore_app", "SessionBar", "STATE_VERSION"]
+
+STATE_VERSION = 1
+
+_LEVEL_SLIDERS = (("breathing", "breathing"), ("amplitude", "amplitude"), ("coupling_scale", "coupling"),
+                  ("onsite_shift", "onsite"))
+
+
+def app_state(app) -> dict:
+    """The state of ``app`` that matters to get an analysis back (plain values only).
+
+    Returns
+    -------
+    dict
+        See the module docstring; energies in eV, lengths in Å, the isovalue
+        in the grid's unit. Views that are not shown are left out.
+    """
+    obj = app.loader.value
+    out = {"state_version": STATE_VERSION,
+           "source": {"path": app.loader.path.value, "origin": _origin(obj)},
+           "case": None if app.case is None else app.case.name,
+           "tab": app.tabs.selected_index}
+    le = app.levels
+    if le is not None:
+        out["levels"] = {k: float(getattr(le, attr).value) for k, attr in _LEVEL_SLIDERS}
+        out["levels"].update(mode=le.mode.value, swap=le.swap.value)
+    if app.pdos is not None:
+        out["pdos"] = {"channels": list(app.pdos.picker.value),
+                       "window": tuple(float(v) for v in app.pdos.window.value)}
+    sv = app.structure
+    if sv is not None:
+        out["structure"] = {"isovalue": None if sv.isovalue is None else float(sv.isovalue.value),
+                            "only_near": bool(sv.only_near.value), "radius": float(sv.radius.value)}
+    if app.board is not None:
+        out["board"] = {"x": app.board.x.value, "y": app.board.y.value}
+    return out
+
+
+def _origin(obj):
+    src = getattr(obj, "source", None)
+    return None if src is None else str(src)
+
+
+def _clamp(name, value, lo, hi, unit="") -> tuple[float, str | None]:
+    v = float(value)
+    c = min(max(v, lo), hi)
+    if c == v:
+        return v, None
+    return c, f"{name} = {v:.6g}{unit} is outside the range [{lo:.6g}, {hi:.6g}]{unit}; clamped to {c:.6g}{unit}"
+
+
+def _choose(name, dropdown, value, notes):
+    if value is None or dropdown.value == value:
+        return
+    if value in dropdown.options:
+        dropdown.value = value
+    else:
+        notes.append(f"{name} {value!r} is not offered here; kept {dropdown.value!r}")
+
+
+def apply_state(app, state: dict, data=None) -> list[str]:
+    """Set ``app`` to a saved :func:`app_state`.
+
+    Parameters
+    ----------
+    app : App
+    state : dict
+        From :func:`app_state` (possibly read back from a session file).
+    data : DefectCase, Family, ProjectedDOS or Grid, optional
+        The saved data object; when None the data is read again from the
+        saved path (``state["source"]``). When it is the object already
+        shown, nothing is reloaded.
+
+    Returns
+    -------
+    list of str
+        Notes for the user: slider values clamped to the (fit's) validated
+        range, channels or options not available, where the data came from.
+
+    Raises
+    ------
+    SessionError
+        The state is of a newer layout, or its data cannot be obtained.
+    """
+    if not isinstance(state, dict) or not isinstance(state.get("state_version"), int):
+        raise SessionError("the session holds no app state (no 'state_version' field)")
+    if state["state_version"] > STATE_VERSION:
+        raise SessionError(f"the app state has layout version {state['state_version']}; this orbtool reads "
+                           f"≤ {STATE_VERSION}. Upgrade orbtool to restore it.")
+    notes: list[str] = []
+    src = state.get("source") or {}
+    if data is None:
+        where = src.get("origin") or src.get("path")
+        if not where:
+            raise SessionError("the session holds neither the data nor a path to read it from")
+        from .loader import load_any
+
+        data, err = attempt(load_any, where)
+        if err:
+            raise SessionError(f"the session's data could not be read again from {where}: {err}")
+        notes.append(f"data read again from {where}")
+    if data is not app.loader.value:
+        app._loaded(data)
+        app.loader.value = data
+        app.loader.path.value = src.get("path") or ""
+        origin = src.get("origin")
+        moved = "" if origin is None or Path(origin).exists() else " (that path no longer exists)"
+        app.loader.status.value = message_html(f"restored {type(data).__name__} "
+                                               f"{getattr(data, 'name', '') or ''} from the session; "
+                                               f"originally read from {origin or 'memory'}{moved}")
+    _set_case(app, state.get("case"), notes)
+    _set_levels(app.levels, state.get("levels"), notes)
+    _set_pdos(app.pdos, state.get("pdos"), notes)
+    _set_structure(app.structure, state.get("structure"), notes)
+    if app.board is not None and state.get("board"):
+        _choose("board x axis", app.board.x, state["board"].get("x"), notes)
+        _choose("board y axis", app.board.y, state["board"].get("y"), notes)
+    if isinstance(state.get("tab"), int) and 0 <= state["tab"] < len(app.tabs.children):
+        app.tabs.selected_index = state["tab"]
+    return notes
+
+
+def _set_case(app, name, notes):
+    if name is None or (app.case is not None and app.case.name == name):
+        return
+    if app.family is None:
+        notes.append(f"case {name!r} is not the one loaded; showing {app.case.name if app.case else 'nothing'}")
+        return
+    names = [c.name for c in app.family]
+    if name not in names:
+        notes.append(f"case {name!r} is not in family {app.family.name!r}; showing {app.case.name}")
+    elif app.board is not None and name in app.board.cols["name"]:
+        app.board.select(name)
+    else:
+        app.show_case(app.family[name])
+
+
+def _set_levels(le, saved, notes):
+    if not saved:
+        return
+    if le is None:
+        notes.append("level explorer settings not applied: no model for this case")
+        return
+    _choose("distortion mode", le.mode, saved.get("mode"), notes)
+    _choose("cation swap", le.swap, saved.get("swap"), notes)
+    knobs = {k: saved[k] for k, _ in _LEVEL_SLIDERS if saved.get(k) is not None}
+    clamp = le.set(**knobs)  # clamps to the fit's validated range and shows the notes in the explorer
+    notes += [f"level explorer: {c}" for c in clamp]
+
+
+def _set_pdos(ex, saved, notes):
+    if not saved:
+        return
+    if ex is None:
+        notes.append("PDOS settings not applied: no PDOS for this case")
+        return
+    chans = [c for c in saved.get("channels", []) if c in ex.choices]
+    lost = [c for c in saved.get("channels", []) if c not in ex.choices]
+    if lost:
+        notes.append(f"PDOS channels not available here: {', '.join(lost)}")
+    if chans and tuple(chans) != tuple(ex.picker.value):
+        ex.picker.value = tuple(chans)
+    win = saved.get("window")
+    if win is not None:
+        lo, n1 = _clamp("moment window low", win[0], ex.window.min, ex.window.max, " eV")
+        hi, n2 = _clamp("moment window high", win[1], ex.window.min, ex.window.max, " eV")
+        notes += [n for n in (n1, n2) if n]
+        if (lo, hi) != tuple(ex.window.value):
+            ex.window.value = (lo, hi)
+
+
+def _set_structure(sv, saved, notes):
+    if not saved:
+        return
+    if sv is None:
+        notes.append("structure settings not applied: no structure view")
+        return
+    if saved.get("radius") is not None:
+        r, n = _clamp("R", saved["radius"], sv.radius.min, sv.radius.max, " Å")
+        notes += [n] if n else []
+        sv.radius.value = r
+    if saved.get("only_near") is not None and not sv.only_near.disabled:
+        sv.only_near.value = bool(saved["only_near"])
+    iso = saved.get("isovalue")
+    if iso is not None:
+        s = sv.isovalue
+        if s is None:
+            notes.append("isovalue not applied: this case has no state grid")
+        else:
+            v, n = _clamp("isovalue", iso, s.base ** s.min, s.base ** s.max)
+            notes += [n] if n else []
+            s.value = v
+
+
+# ---------------------------------------------------------------------------------------------- files
+def save_app(app, path, *, overwrite: bool = False) -> Path:
+    """Write the app's state and its loaded data to session file ``path``
+    (:func:`orbtool.session.save_session`; refuses to replace a file that is
+    not an orbtool session unless ``overwrite``)."""
+    from ..session import save_session
+
+    return save_session(path, {"app": app_state(app), "data": app.loader.value}, overwrite=overwrite)
+
+
+def restore_app(app, path) -> list[str]:
+    """Read session file ``path`` and apply it to ``app``; returns the notes.
+
+    On any error the app is put back as it was and the error re-raised
+    (as :class:`~orbtool.errors.SessionError` where it concerns the file).
+    """
+    from ..session import load_session
+
+    content = load_session(path)
+    if not isinstance(content, dict) or "app" not in content:
+        raise SessionError(f"{path}: an orbtool session, but not one saved by the app (no 'app' entry)")
+    state = content["app"]
+    if not isinstance(state, dict) or not isinstance(state.get("state_version"), int):
+        raise SessionError(f"{path}: the 'app' entry has no 'state_version'")
+    if state["state_version"] > STATE_VERSION:
+        raise SessionError(f"{path}: app state layout {state['state_version']} is newer than this orbtool "
+                           f"reads (≤ {STATE_VERSION}). Upgrade orbtool to restore it.")
+    before, data_before = app_state(app), app.loader.value
+    try:
+        return apply_state(app, state, content.get("data"))
+    except Exception:
+        if data_before is not None:
+            attempt(apply_state, app, before, data_before)
+        raise
+
+
+class SessionBar:
+    """Path box + "Save" and "Restore" buttons + status line for an App."""
+
+    def __init__(self, app, path: str = ""):
+        self.app = app
+        self.path = w.Text(value=str(path), placeholder="file to save to / restore from (e.g. work.orbsession)",
+                           description="session", layout=w.Layout(width="520px"))
+        self.save_button = w.Button(description="Save", icon="save", tooltip="save the analysis to this file")
+        self.restore_button = w.Button(description="Restore", icon="undo", tooltip="restore the analysis saved "
+                                                                                   "in this file")
+        self.status = w.HTML()
+        self.save_button.on_click(lambda _: self.save())
+        self.restore_button.on_click(lambda _: self.restore())
+        self.widget = w.VBox([w.HBox([self.path, self.save_button, self.restore_button]), self.status])
+        self.widget.add_class("orbtool-session")
+
+    def _target(self):
+        p = self.path.value.strip()
+        if not p:
+            self.status.value = message_html("give a session file path first", "error")
+            return None
+        return Path(p).expanduser()
+
+    def save(self):
+        """Save to the path in the box; returns the file written or None (message shown)."""
+        target = self._target()
+        if target is None:
+            return None
+        if self.app.loader.value is None:
+            self.status.value = message_html("nothing loaded yet: nothing to save", "error")
+            return None
+        out, err = attempt(save_app, self.app, target)
+        if err:
+            self.status.value = message_html(f"not saved: {err}", "error")
+            return None
+        self.status.value = message_html(f"saved to {out}")
+        return out
+
+    def restore(self):
+        """Restore from the path in the box; returns the notes or None (message shown, state kept)."""
+        target = self._target()
+        if target is None:
+            return None
+        try:
+            notes, err = attempt(restore_app, self.app, target)
+        except Exception as exc:  # never a traceback in the widget: anything unforeseen becomes a message
+            notes, err = None, f"{type(exc).__name__}: {exc}"
+        if err:
+            self.status.value = message_html(f"not restored (current analysis kept): {err}", "error")
+            return None
+        text = f"restored from {target}" + "".join(f"\n• {n}" for n in notes)
+        self.status.value = message_html(text, "warn" if any("clamped" in n for n in notes) else "info")
+        return notes
