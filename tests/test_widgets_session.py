@@ -83,27 +83,48 @@ def test_restore_in_a_fresh_app_is_bit_exact(saved):
     assert "Traceback" not in fresh.session.status.value
 
 
-def _rewrite_header(src, dst, **changes):
+def _rewrite_header(src, dst, edit):
+    """Copy session ``src`` to ``dst`` with ``edit(doc)`` applied to its JSON header."""
     with zipfile.ZipFile(src) as zin, zipfile.ZipFile(dst, "w") as zout:
         for item in zin.infolist():
             data = zin.read(item.filename)
             if item.filename == "session.json":
                 doc = json.loads(data)
-                doc.update(changes)
+                edit(doc)
                 data = json.dumps(doc).encode()
-            zout.writestr(item, data)
+            zout.writestr(item.filename, data, compress_type=zipfile.ZIP_STORED)  # stored: fast to write
+
+
+def _set(**changes):
+    def edit(doc):
+        for key, value in changes.items():
+            node = doc
+            *parents, last = key.split("__")
+            for p in parents:
+                node = node[p]
+            node[last] = value
+    return edit
 
 
 def test_damaged_newer_and_missing_files_leave_the_app_as_it_was(saved, tmp_path):
-    from orbtool.session import SCHEMA_VERSION
+    from orbtool.session import SCHEMA_VERSION, save_session
 
     app, values, path = saved
     raw = path.read_bytes()
     cut = tmp_path / "cut.orbsession"
     cut.write_bytes(raw[: len(raw) // 2])  # a copy interrupted half way
     newer = tmp_path / "newer.orbsession"
-    _rewrite_header(path, newer, schema=SCHEMA_VERSION + 1, orbtool="99.0")
-    cases = [(cut, "damaged"), (newer, f"schema {SCHEMA_VERSION + 1}"), (tmp_path / "none.orbsession", "no such")]
+    _rewrite_header(path, newer, _set(schema=SCHEMA_VERSION + 1, orbtool="99.0"))
+    layout = tmp_path / "layout.orbsession"
+    _rewrite_header(path, layout, _set(content__app__state_version=99))
+    edited = tmp_path / "edited.orbsession"
+    _rewrite_header(path, edited, _set(content__app__levels__coupling_scale="1.2 or so"))
+    gone = tmp_path / "gone.orbsession"  # no data inside and its folder vanished
+    _rewrite_header(path, gone, _set(content__data=None, content__app__source__origin=str(tmp_path / "gone")))
+    other = save_session(tmp_path / "other.orbsession", {"fits": [1.0, 2.0]})
+    cases = [(cut, "damaged"), (newer, f"schema {SCHEMA_VERSION + 1}"), (tmp_path / "none.orbsession", "no such"),
+             (layout, "layout version 99"), (edited, "levels.coupling_scale"), (gone, "could not be read again"),
+             (other, "not one saved by the app")]
     for bad, fragment in cases:
         app.session.path.value = str(bad)
         assert app.session.restore() is None

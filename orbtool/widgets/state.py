@@ -31,7 +31,7 @@ import ipywidgets as w
 from ..errors import SessionError
 from ._common import attempt, message_html
 
-__all__ = ["app_state", "apply_state", "save_app", "restore_app", "SessionBar", "STATE_VERSION"]
+__all__ = ["app_state", "apply_state", "check_state", "save_app", "restore_app", "SessionBar", "STATE_VERSION"]
 
 STATE_VERSION = 1
 
@@ -91,6 +91,39 @@ def _choose(name, dropdown, value, notes):
         notes.append(f"{name} {value!r} is not offered here; kept {dropdown.value!r}")
 
 
+_FIELDS = {"case": str, "tab": int, "source.path": str, "source.origin": str,
+           "levels.breathing": float, "levels.amplitude": float, "levels.coupling_scale": float,
+           "levels.onsite_shift": float, "levels.mode": str, "levels.swap": str,
+           "pdos.channels": list, "pdos.window": tuple, "structure.isovalue": float, "structure.only_near": bool,
+           "structure.radius": float, "board.x": str, "board.y": str}
+
+
+def check_state(state) -> None:
+    """Raise :class:`SessionError` naming the first field of a saved app state
+    that has the wrong type (checked before anything in the app is touched)."""
+    if not isinstance(state, dict) or not isinstance(state.get("state_version"), int):
+        raise SessionError("the session holds no app state (no integer 'state_version' field)")
+    if state["state_version"] > STATE_VERSION:
+        raise SessionError(f"the app state has layout version {state['state_version']}; this orbtool reads "
+                           f"≤ {STATE_VERSION}. Upgrade orbtool to restore it.")
+    for key, kind in _FIELDS.items():
+        node = state
+        for part in key.split("."):
+            node = node.get(part) if isinstance(node, dict) else None
+        if node is None:
+            continue
+        ok = {float: isinstance(node, (int, float)) and not isinstance(node, bool) and node == node,
+              int: isinstance(node, int) and not isinstance(node, bool),
+              bool: isinstance(node, bool), str: isinstance(node, str),
+              list: isinstance(node, (list, tuple)) and all(isinstance(c, str) for c in node),
+              tuple: isinstance(node, (list, tuple)) and len(node) == 2
+              and all(isinstance(v, (int, float)) and not isinstance(v, bool) and v == v for v in node)}[kind]
+        if not ok:
+            expected = {float: "a number", int: "an integer", bool: "true/false", str: "text",
+                        list: "a list of channel names", tuple: "a pair of numbers (eV)"}[kind]
+            raise SessionError(f"app state field '{key}' is {node!r}; expected {expected}")
+
+
 def apply_state(app, state: dict, data=None) -> list[str]:
     """Set ``app`` to a saved :func:`app_state`.
 
@@ -113,13 +146,10 @@ def apply_state(app, state: dict, data=None) -> list[str]:
     Raises
     ------
     SessionError
-        The state is of a newer layout, or its data cannot be obtained.
+        The state is of a newer layout, has a field of the wrong type, or
+        its data cannot be obtained.
     """
-    if not isinstance(state, dict) or not isinstance(state.get("state_version"), int):
-        raise SessionError("the session holds no app state (no 'state_version' field)")
-    if state["state_version"] > STATE_VERSION:
-        raise SessionError(f"the app state has layout version {state['state_version']}; this orbtool reads "
-                           f"≤ {STATE_VERSION}. Upgrade orbtool to restore it.")
+    check_state(state)
     notes: list[str] = []
     src = state.get("source") or {}
     if data is None:
@@ -247,17 +277,18 @@ def restore_app(app, path) -> list[str]:
     if not isinstance(content, dict) or "app" not in content:
         raise SessionError(f"{path}: an orbtool session, but not one saved by the app (no 'app' entry)")
     state = content["app"]
-    if not isinstance(state, dict) or not isinstance(state.get("state_version"), int):
-        raise SessionError(f"{path}: the 'app' entry has no 'state_version'")
-    if state["state_version"] > STATE_VERSION:
-        raise SessionError(f"{path}: app state layout {state['state_version']} is newer than this orbtool "
-                           f"reads (≤ {STATE_VERSION}). Upgrade orbtool to restore it.")
+    try:
+        check_state(state)
+    except SessionError as exc:
+        raise SessionError(f"{path}: {exc}") from None
     before, data_before = app_state(app), app.loader.value
     try:
         return apply_state(app, state, content.get("data"))
-    except Exception:
-        if data_before is not None:
+    except Exception as exc:
+        if data_before is not None:  # put back what was shown (reloads only if the data was replaced)
             attempt(apply_state, app, before, data_before)
+        if isinstance(exc, SessionError):
+            raise SessionError(f"{path}: {exc}") from None
         raise
 
 
