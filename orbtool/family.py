@@ -156,7 +156,7 @@ def analyze_family(family, *, workers: int | None = None, client=None, progress:
         own = isinstance(client, str)
         cl = Client(client) if own else client
         try:
-            futures = cl.map(analyze_case, cases, pure=False)
+            futures = cl.map(analyze_case, cl.scatter(cases), pure=False)  # data sent once, not in the graph
             for fut in dask_completed(futures):
                 r = fut.result()
                 results[r.name] = r
@@ -281,7 +281,9 @@ class FamilyAnalysis:
         Kohn–Sham state and SRH factors (:class:`orbtool.levels.DefectLevels`).
 
         Chemical potentials come from ``family.references["mu"]`` (absolute,
-        eV/atom). SRH conditions default to the illustrative values in
+        eV/atom); a ``dielectric`` reference (scalar, 3×3, or a table keyed by the
+        ``defect``, ``motif`` or ``cation`` label)
+        switches on the charged-cell correction. SRH conditions default to the illustrative values in
         ``srh`` (masses 0.3 mₑ, σ = 1e-15 cm², N_t = 1e15 cm⁻³, 300 K); the
         *ratio* to a mid-gap trap that orbtool reports hardly depends on them.
         """
@@ -313,7 +315,15 @@ class FamilyAnalysis:
             cases = [self.family[m.name] for m in ok]
             if mu and all(c.total_energy is not None and c.host_total_energy is not None for c in cases):
                 try:
-                    diagram = lv.formation_energies(cases, mu, vbm=float(edges.vbm), gap=gap, name=key)
+                    # charged-cell correction (Ewald point charge + alignment) when the manifest gives a
+                    # dielectric constant; without one the energies are used as given (and the diagram says so)
+                    diel = refs.get("dielectric")
+                    if isinstance(diel, dict):  # a table keyed by defect group, motif or cation label
+                        diel = next((diel[base.labels[k]] for k in ("defect", "motif", "cation")
+                                     if base.labels.get(k) in diel), None)
+                    pos = base.site.position if base.site is not None else None
+                    diagram = lv.formation_energies(cases, mu, vbm=float(edges.vbm), gap=gap, name=key,
+                                                    dielectric=diel, defect_position=pos)
                 except OrbtoolError as exc:
                     self.notes.append(f"{key}: formation energies skipped: {exc}")
             try:
