@@ -32,13 +32,19 @@ def _widget_values(app):
 
 
 @pytest.fixture(scope="module")
-def saved(tmp_path_factory):
+def demo_family():
     import orbtool
     import orbtool.pipeline
+
+    return orbtool.load_family(orbtool.pipeline.demo_manifest())
+
+
+@pytest.fixture(scope="module")
+def saved(tmp_path_factory, demo_family):
     from orbtool.widgets import App
 
     tmp = tmp_path_factory.mktemp("session")
-    family = orbtool.load_family(orbtool.pipeline.demo_manifest())
+    family = demo_family
     # pretend the data folder has since moved away: the session must carry the data itself
     family = dataclasses.replace(family, source=str(tmp / "moved-away" / "family.toml"))
     app = App(family)
@@ -108,6 +114,7 @@ def _set(**changes):
 
 def test_damaged_newer_and_missing_files_leave_the_app_as_it_was(saved, tmp_path):
     from orbtool.session import SCHEMA_VERSION, save_session
+    from orbtool.widgets import app_state
 
     app, values, path = saved
     raw = path.read_bytes()
@@ -115,12 +122,13 @@ def test_damaged_newer_and_missing_files_leave_the_app_as_it_was(saved, tmp_path
     cut.write_bytes(raw[: len(raw) // 2])  # a copy interrupted half way
     newer = tmp_path / "newer.orbsession"
     _rewrite_header(path, newer, _set(schema=SCHEMA_VERSION + 1, orbtool="99.0"))
-    layout = tmp_path / "layout.orbsession"
-    _rewrite_header(path, layout, _set(content__app__state_version=99))
-    edited = tmp_path / "edited.orbsession"
-    _rewrite_header(path, edited, _set(content__app__levels__coupling_scale="1.2 or so"))
-    gone = tmp_path / "gone.orbsession"  # no data inside and its folder vanished
-    _rewrite_header(path, gone, _set(content__data=None, content__app__source__origin=str(tmp_path / "gone")))
+    # small sessions written through the public API (no data inside), each wrong in one way
+    state = app_state(app)
+    layout = save_session(tmp_path / "layout.orbsession", {"app": {**state, "state_version": 99}, "data": None})
+    edited = save_session(tmp_path / "edited.orbsession", {"app": {**state, "levels": {
+        **state["levels"], "coupling_scale": "1.2 or so"}}, "data": None})
+    gone = save_session(tmp_path / "gone.orbsession", {"app": {**state, "source": {  # no data, folder vanished
+        "path": "", "origin": str(tmp_path / "gone")}}, "data": None})
     other = save_session(tmp_path / "other.orbsession", {"fits": [1.0, 2.0]})
     cases = [(cut, "damaged"), (newer, f"schema {SCHEMA_VERSION + 1}"), (tmp_path / "none.orbsession", "no such"),
              (layout, "layout version 99"), (edited, "levels.coupling_scale"), (gone, "could not be read again"),
@@ -160,3 +168,38 @@ def test_restored_sliders_are_clamped_to_the_fit_range_and_say_so(saved):
     newer = dict(state, state_version=state["state_version"] + 1)
     with pytest.raises(Exception, match="Upgrade orbtool"):
         apply_state(app, newer, app.loader.value)
+
+
+def test_single_case_round_trip_and_rollback_when_applying_fails(demo_family, tmp_path, monkeypatch):
+    from orbtool.widgets import App, app_state, save_app
+    from orbtool.widgets import state as state_mod
+
+    case = next(c for c in demo_family if c.name.startswith("GeS-rocksalt_V_S"))
+    app = App(case)
+    assert app.family is None and app.levels is not None
+    app.levels.set(coupling_scale=1.2345678901234, onsite_shift=0.0987654321)
+    app.pdos.window.value = (-0.4321, 1.2345)
+    saved_state, readout = app_state(app), app.levels.readout.value
+    path = save_app(app, tmp_path / "one.orbsession")
+    fresh = App()
+    fresh.session.path.value = str(path)
+    assert fresh.session.restore() is not None, fresh.session.status.value
+    assert app_state(fresh) == saved_state and fresh.levels.readout.value == readout
+    assert fresh.case.name == case.name and fresh.case is not case
+
+    # a failure half way through applying (after the level knobs were moved) puts the app back
+    before = app_state(fresh)
+    with zipfile.ZipFile(path) as z:
+        head = json.loads(z.read("session.json"))
+    head["content"]["app"]["levels"]["coupling_scale"] = 0.75
+    other = tmp_path / "other.orbsession"
+    _rewrite_header(path, other, lambda doc: doc.update(content=head["content"]))
+
+    def broken(sv, saved, notes):
+        raise RuntimeError("view went away")
+    monkeypatch.setattr(state_mod, "_set_structure", broken)
+    fresh.session.path.value = str(other)
+    assert fresh.session.restore() is None
+    assert "view went away" in fresh.session.status.value and "current analysis kept" in fresh.session.status.value
+    monkeypatch.undo()
+    assert app_state(fresh) == before and fresh.levels.readout.value == readout
