@@ -129,10 +129,11 @@ def test_damaged_newer_and_missing_files_leave_the_app_as_it_was(saved, tmp_path
         **state["levels"], "coupling_scale": "1.2 or so"}}, "data": None})
     gone = save_session(tmp_path / "gone.orbsession", {"app": {**state, "source": {  # no data, folder vanished
         "path": "", "origin": str(tmp_path / "gone")}}, "data": None})
+    wrong = save_session(tmp_path / "wrong.orbsession", {"app": state, "data": [1.0, 2.0]})
     other = save_session(tmp_path / "other.orbsession", {"fits": [1.0, 2.0]})
     cases = [(cut, "damaged"), (newer, f"schema {SCHEMA_VERSION + 1}"), (tmp_path / "none.orbsession", "no such"),
              (layout, "layout version 99"), (edited, "levels.coupling_scale"), (gone, "could not be read again"),
-             (other, "not one saved by the app")]
+             (other, "not one saved by the app"), (wrong, "expected a DefectCase")]
     for bad, fragment in cases:
         app.session.path.value = str(bad)
         assert app.session.restore() is None

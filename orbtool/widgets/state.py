@@ -150,6 +150,13 @@ def apply_state(app, state: dict, data=None) -> list[str]:
         its data cannot be obtained.
     """
     check_state(state)
+    from ..case import DefectCase, Family
+    from ..grid import Grid
+    from ..spectra import ProjectedDOS
+
+    if data is not None and not isinstance(data, (DefectCase, Family, ProjectedDOS, Grid)):
+        raise SessionError(f"the session's data is a {type(data).__name__}; expected a DefectCase, Family, "
+                           "ProjectedDOS or Grid")
     notes: list[str] = []
     src = state.get("source") or {}
     if data is None:
@@ -192,10 +199,11 @@ def _set_case(app, name, notes):
     names = [c.name for c in app.family]
     if name not in names:
         notes.append(f"case {name!r} is not in family {app.family.name!r}; showing {app.case.name}")
-    elif app.board is not None and name in app.board.cols["name"]:
-        app.board.select(name)
     else:
-        app.show_case(app.family[name])
+        if app.board is not None and name in app.board.cols["name"]:
+            app.board.select(name)  # keeps the board's pick in step; shows the case
+        if app.case is None or app.case.name != name:
+            app.show_case(app.family[name])
 
 
 def _set_levels(le, saved, notes):
@@ -323,7 +331,10 @@ class SessionBar:
         if self.app.loader.value is None:
             self.status.value = message_html("nothing loaded yet: nothing to save", "error")
             return None
-        out, err = attempt(save_app, self.app, target)
+        try:
+            out, err = attempt(save_app, self.app, target)
+        except Exception as exc:  # never a traceback in the widget
+            out, err = None, f"{type(exc).__name__}: {exc}"
         if err:
             self.status.value = message_html(f"not saved: {err}", "error")
             return None
