@@ -58,10 +58,11 @@ def save_figure(fig, base, formats=("svg", "pdf", "png"), dpi: int = 600) -> lis
     base = Path(base)
     base.parent.mkdir(parents=True, exist_ok=True)
     out = []
-    with plt.rc_context(FONT_EMBEDDING):
+    # reproducible files: no creation dates, fixed SVG element ids (same input → same bytes)
+    meta = {"pdf": {"Creator": "orbtool", "CreationDate": None}, "svg": {"Creator": "orbtool", "Date": None}}
+    with plt.rc_context({**FONT_EMBEDDING, "svg.hashsalt": "orbtool"}):
         for fmt in formats:
             p = base.with_suffix(f".{fmt}")
-            fig.savefig(p, dpi=dpi if fmt == "png" else None, metadata={"Creator": "orbtool"} if fmt != "png"
-                        else None)
+            fig.savefig(p, dpi=dpi if fmt == "png" else None, metadata=meta.get(fmt))
             out.append(p)
     return out
