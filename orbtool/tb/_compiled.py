@@ -81,19 +81,18 @@ class Compiled:
 
     def offdiag(self, law, n=None, q=None) -> np.ndarray:
         """Full (G, norb, norb) inter-atomic part for coupling_scale = 1."""
-        g = self.radial(law, n, q)
-        blk = np.einsum("kgp,kgpab->gpab", g, self.blocks)
-        H = np.zeros((self.G, self.natom, self.no, self.natom, self.no))
-        i, j = self.pairs.T
-        H[:, i, :, j, :] = np.swapaxes(blk, 0, 1)
-        H[:, j, :, i, :] = np.swapaxes(np.swapaxes(blk, 2, 3), 0, 1)
-        return H.reshape(self.G, self.norb, self.norb)
+        return self._assemble(self.radial(law, n, q))
 
     def offdiag_log_derivative(self, law, n=None, q=None) -> np.ndarray:
         """∂H_off/∂n (or ∂/∂q) for coupling_scale = 1, same shape as :meth:`offdiag`."""
         g = self.radial(law, n, q) * law.log_derivative(self.pair_distance)[None]
         if law.kind != "exp":
             g = g * EXPONENT_FACTOR[:, None, None]
+        return self._assemble(g)
+
+    def _assemble(self, g) -> np.ndarray:
+        """(G, norb, norb) matrix from per-channel radial factors g (k, G, npair): each pair's
+        Slater–Koster block at (i, j) and its transpose at (j, i) (H is real symmetric)."""
         blk = np.einsum("kgp,kgpab->gpab", g, self.blocks)
         H = np.zeros((self.G, self.natom, self.no, self.natom, self.no))
         i, j = self.pairs.T
