@@ -55,6 +55,15 @@ def _display_path(path) -> str:
         return str(Path(*p.parts[-2:]))
 
 
+def _relative_paths(text: str) -> str:
+    """Paths under the working folder shown relative to it (reports travel; machine paths should not)."""
+    import os
+    from pathlib import Path
+    for root in {str(Path.cwd()), str(Path.cwd().resolve())}:
+        text = text.replace(root + os.sep, "")
+    return text
+
+
 def _table(rows):
     keys = [k for k in _TABLE_KEYS if any(k in r for r in rows)]
     head = "".join(f"<th>{html.escape(k.replace('_', ' '))}</th>" for k in keys)
@@ -200,4 +209,4 @@ def case_report(fam, res, name: str, fit=None, *, demo: bool = False) -> str:
         parts.append("<h2>Levels and SRH factor</h2><pre>" + html.escape(res.levels[key].summary()) + "</pre>")
     parts.append("<h2>What was read</h2><pre>" + html.escape(case.summary()) + "</pre>")
     parts.append("</body></html>")
-    return "\n".join(parts)
+    return _relative_paths("\n".join(parts))
