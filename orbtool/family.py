@@ -84,11 +84,8 @@ def _first_shell_moments(case, site) -> dict:
     """Change of the first-shell PDOS moments host → defect (Cyrot-Lackmann moments theorem)."""
     if case.defect_pdos is None or case.host_pdos is None:
         return {}
-    from .analysis import moments as mom
-    fn = getattr(mom, "compare_neighbour_moments", None) or getattr(mom, "compare_moments", None)
-    if fn is None:
-        return {}
-    res = fn(case, site=site)
+    from .analysis.moments import neighbour_moments
+    res = neighbour_moments(case, site=site)
     return res.to_dict() if hasattr(res, "to_dict") else dict(res)
 
 

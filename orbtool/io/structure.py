@@ -85,28 +85,26 @@ def _num(tok, path, line, what):
     return v
 
 
-def read_oszicar_energy(path) -> float:
-    """Final ``E0=`` (energy extrapolated to σ → 0, eV) of an OSZICAR."""
+def _last_energy(path, pattern, field: str, missing: str) -> float:
+    """Value (eV) of the last line matching ``pattern`` (energy in group 2)."""
     last = None
     for i, line in enumerate(read_text(path).splitlines(), start=1):
-        m = _OSZ.match(line)
+        m = pattern.search(line)
         if m:
-            last = (_num(m.group(2), path, i, "E0"), i)
+            last = _num(m.group(2), path, i, field)
     if last is None:
-        raise InputFormatError(path, None, "no ionic step line ('N F= ... E0= ...') found", field="E0")
-    return last[0]
+        raise InputFormatError(path, None, missing, field=field)
+    return last
+
+
+def read_oszicar_energy(path) -> float:
+    """Final ``E0=`` (energy extrapolated to σ → 0, eV) of an OSZICAR."""
+    return _last_energy(path, _OSZ, "E0", "no ionic step line ('N F= ... E0= ...') found")
 
 
 def read_outcar_energy(path) -> float:
     """Final ``energy(sigma->0)`` (eV) of an OUTCAR."""
-    last = None
-    for i, line in enumerate(read_text(path).splitlines(), start=1):
-        m = _OUT.search(line)
-        if m:
-            last = (_num(m.group(2), path, i, "energy(sigma->0)"), i)
-    if last is None:
-        raise InputFormatError(path, None, "no 'energy(sigma->0) =' line found", field="energy")
-    return last[0]
+    return _last_energy(path, _OUT, "energy(sigma->0)", "no 'energy(sigma->0) =' line found")
 
 
 def read_energy(path) -> float:
