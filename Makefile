@@ -5,7 +5,7 @@ BIN := $(VENV)/bin
 STAMP_DEMO := $(VENV)/.stamp-demo
 STAMP_TEST := $(VENV)/.stamp-test
 
-.PHONY: demo test lint bench demo-data external-data clean-venv
+.PHONY: demo test lint bench demo-data external-data periodic-data clean-venv
 
 $(BIN)/python:
 	$(PY) -m venv $(VENV)
@@ -37,6 +37,10 @@ demo-data: $(STAMP_DEMO)
 
 external-data: $(STAMP_TEST)
 	$(BIN)/python tests/external/generate.py
+
+# the periodic GPAW family (Debian's gpaw + gpaw-data, system python; ~2 h on 2 cores; skips finished cases)
+periodic-data:
+	OPENBLAS_NUM_THREADS=1 mpirun --allow-run-as-root -np 2 /usr/bin/python3 tests/external/periodic/generate.py --skip-done
 
 clean-venv:
 	rm -rf $(VENV)
