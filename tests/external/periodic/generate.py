@@ -84,16 +84,20 @@ ORBITALS = ("s", "py", "pz", "px", "dxy", "dyz", "dz2", "dxz", "dx2-y2")   # GPA
 
 
 def case_list() -> list[str]:
-    """All cases, most important first (so a partial run is still useful)."""
-    first = [h for pair in PAIRS for h in pair]
-    cases = []
-    for h in first + ["CsCl"]:
-        cases += [f"{h}/host", f"{h}/V_{HOSTS[h][2]}"]
+    """All cases, most important first (a partial run is still useful): two complete cation-swap
+    pairs, the 8-fold site, the true band edges, one breathing series per structure type, then
+    the other two pairs, the other breathing series and the cation vacancies."""
+    def ideal(h):
+        return [f"{h}/host", f"{h}/V_{HOSTS[h][2]}"]
+
+    def breathing(h):
+        return [f"{h}/V_{HOSTS[h][2]}_r0.95", f"{h}/V_{HOSTS[h][2]}_r1.05"]
+    cases = ideal("ZnS") + ideal("CdS") + ideal("NaCl") + ideal("KCl") + ideal("CsCl")
     cases += [f"{h}/bands" for h in HOSTS]
-    for h in BREATHING:
-        cases += [f"{h}/V_{HOSTS[h][2]}_r0.95", f"{h}/V_{HOSTS[h][2]}_r1.05"]
-    for h in CATION_VACANCY:
-        cases.append(f"{h}/V_{HOSTS[h][1]}")
+    cases += breathing("ZnS") + breathing("NaCl") + breathing("CsCl")
+    cases += ideal("AlP") + ideal("GaP") + ideal("CaO") + ideal("SrO")
+    cases += breathing("AlP") + breathing("CaO")
+    cases += [f"{h}/V_{HOSTS[h][1]}" for h in CATION_VACANCY]
     return cases
 
 
@@ -232,10 +236,16 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
     folder = out / case
     folder.mkdir(parents=True, exist_ok=True)
     t0 = time.time()
-    calc = _calc(str(folder / "gpaw.txt"))
-    calc.initialize(atoms)
-    nocc0 = int(np.ceil(calc.wfs.nvalence / 2))
-    calc = _calc(str(folder / "gpaw.txt"), nbands=nocc0 + 24)
+    start = out / case.rsplit("_r", 1)[0] / "gs.gpw"
+    if "_r" in case and start.exists():               # breathing: start from the ideal vacancy's ground state
+        from gpaw import GPAW
+        calc = GPAW(str(start), txt=str(folder / "gpaw.txt"))
+        info["started_from"] = "converged ideal vacancy (wave functions and density)"
+    else:
+        calc = _calc(str(folder / "gpaw.txt"))
+        calc.initialize(atoms)
+        nocc0 = int(np.ceil(calc.wfs.nvalence / 2))
+        calc = _calc(str(folder / "gpaw.txt"), nbands=nocc0 + 24)
     atoms.calc = calc
     energy = atoms.get_potential_energy()
     t_scf = time.time() - t0
@@ -285,6 +295,8 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
                                     "mean": float(v.mean())}
         if world.rank == 0:
             _write_cube_gz(folder / "potential.cube.gz", atoms, v)
+    if "first_shell_defect_cell" in info and "_r" not in case:
+        calc.write(str(folder / "gs.gpw"))              # start for the breathing runs (not committed)
     record["wall_time_s"] = {"scf": round(t_scf, 1), "analysis_and_files": round(time.time() - t1, 1)}
     if world.rank == 0:
         (folder / "engine.json").write_text(json.dumps(record, indent=1) + "\n")
@@ -332,6 +344,18 @@ def run_bands(host: str, out: Path) -> dict:
     return rec
 
 
+def _claim(folder: Path) -> bool:
+    """Claim a case for this worker (an exclusive lock file, left in place; remove stale ones by hand)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        fd = os.open(folder / ".claimed", os.O_CREAT | os.O_EXCL | os.O_WRONLY)
+    except FileExistsError:
+        return False
+    os.write(fd, str(os.getpid()).encode())
+    os.close(fd)
+    return True
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--only", nargs="*", help="cases such as NaCl/V_Cl or NaCl/bands (default: all)")
@@ -339,6 +363,8 @@ def main(argv=None) -> int:
     ap.add_argument("--no-cubes", action="store_true")
     ap.add_argument("--skip-done", action="store_true", help="skip cases whose engine.json exists")
     ap.add_argument("--list", action="store_true")
+    ap.add_argument("--queue", action="store_true",
+                    help="take the next unclaimed case in priority order (several workers share one list)")
     ap.add_argument("--shard", default="0/1", help="I/N: run every N-th case starting at I (parallel workers)")
     args = ap.parse_args(argv)
     cases = case_list()
@@ -346,11 +372,15 @@ def main(argv=None) -> int:
         print("\n".join(cases))
         return 0
     todo = args.only or cases
+    if args.queue:
+        args.skip_done = True
     i, n = (int(x) for x in args.shard.split("/"))
     todo = todo[i::n]
     for case in todo:
         done = args.out / case / ("bands.json" if case.endswith("/bands") else "engine.json")
         if args.skip_done and done.exists():
+            continue
+        if args.queue and not _claim(args.out / case):
             continue
         t = time.time()
         if case.endswith("/bands"):
