@@ -39,10 +39,11 @@ external-data: $(STAMP_TEST)
 	$(BIN)/python tests/external/generate.py
 
 # the periodic GPAW family (Debian's gpaw + gpaw-data, system python; hours on 2 cores; skips finished cases).
-# Two serial workers share the case list: on a busy machine that beats two MPI ranks that wait for each other.
-PERIODIC := OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 /usr/bin/python3 tests/external/periodic/generate.py --skip-done
+# Two serial workers take cases from one priority list: on a busy machine that beats two MPI ranks that wait
+# for each other.
+PERIODIC := OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 /usr/bin/python3 tests/external/periodic/generate.py --queue
 periodic-data:
-	$(PERIODIC) --shard 0/2 & $(PERIODIC) --shard 1/2 & wait
+	$(PERIODIC) & $(PERIODIC) & wait
 
 clean-venv:
 	rm -rf $(VENV)

@@ -345,12 +345,18 @@ def run_bands(host: str, out: Path) -> dict:
 
 
 def _claim(folder: Path) -> bool:
-    """Claim a case for this worker (an exclusive lock file, left in place; remove stale ones by hand)."""
+    """Claim a case for this worker: an exclusive lock file holding the pid (a dead owner's claim is taken over)."""
     folder.mkdir(parents=True, exist_ok=True)
+    lock = folder / ".claimed"
     try:
-        fd = os.open(folder / ".claimed", os.O_CREAT | os.O_EXCL | os.O_WRONLY)
+        fd = os.open(lock, os.O_CREAT | os.O_EXCL | os.O_WRONLY)
     except FileExistsError:
-        return False
+        try:
+            os.kill(int(lock.read_text() or 0), 0)
+            return False                                  # its owner is still running
+        except (ValueError, ProcessLookupError, PermissionError):
+            lock.unlink(missing_ok=True)
+            return _claim(folder)
     os.write(fd, str(os.getpid()).encode())
     os.close(fd)
     return True
