@@ -32,7 +32,7 @@ What each case folder holds (all formats orbtool reads, written the way a user w
 * ``potential.cube.gz`` (hosts and ideal anion vacancies) — GPAW's electrostatic potential
   (eV, potential energy of an electron), every second point of the density grid, by ASE's writer;
 * ``engine.json`` — engine and versions, recipe, wall times, total energy, Fermi level,
-  eigenvalues near the gap, the state the engine's own projector analysis calls the defect state
+  eigenvalues near the gap, the state the engine's own grid analysis calls the defect state
   (engine band numbers, 1-based; energies; occupations; share of |ψ̃|² within the first-shell distance
   of the vacant site, on the grid — independent of the projections), every band within E_F ± 3 eV with
   that share and its first-shell projector weight, and GPAW's own per-atom electrostatic potentials.
