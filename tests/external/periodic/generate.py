@@ -13,7 +13,8 @@ cut-off, PAW setups shipped with Debian's ``gpaw-data``, PBE, Γ point only, Fer
 structure types), ideal (unrelaxed) positions at experimental lattice constants, so that geometry
 is controlled and every knob is a known change. (The LCAO/dzp recipe first suggested took
 ~2.5 min per SCF iteration for 63 atoms with Debian's GPAW 22.8 on 2 cores — the long-ranged dzp
-functions of the semicore cations — against 13 s for plane waves, so plane waves it is.) The host band edges away from Γ come from a k-resolved
+functions of the semicore cations — against 13 s for plane waves, so plane waves it is.)
+The host band edges away from Γ come from a k-resolved
 primitive-cell run with the same recipe (band path through the high-symmetry points).
 
 What each case folder holds (all formats orbtool reads, written the way a user would have them):
@@ -249,7 +250,8 @@ def defect_state(e, f, fractions, tol=1e-3):
     bands = sorted(fractions)
     best = max(bands, key=lambda b: fractions[b])
     members = [b for b in bands if abs(e[b] - e[best]) < tol]
-    return {"bands": [b + 1 for b in members], "energy": float(np.mean(e[members])), "energies": [float(e[b]) for b in members],
+    return {"bands": [b + 1 for b in members], "energy": float(np.mean(e[members])),
+            "energies": [float(e[b]) for b in members],
             "occupation": float(np.sum(f[members])), "sphere_fraction": float(np.mean([fractions[b] for b in members])),
             "note": "bands within 1 meV of the band whose pseudo wave function has the largest share within "
                     "the first-shell distance of the vacant site, among the bands within E_F +-3 eV (grid, "
@@ -288,7 +290,8 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
     e, f, w = e_all[keep], f_all[keep], w_all[keep]
     record = {"case": case, "engine": "GPAW", "engine_version": gpaw.__version__, "ase_version": ase.__version__,
               "numpy_version": np.__version__, "recipe": RECIPE, "mpi_ranks": world.size, **info,
-              "scf_iterations": scf_iterations, "natoms": len(atoms), "nvalence": float(calc.wfs.nvalence), "total_energy": float(energy),
+              "scf_iterations": scf_iterations, "natoms": len(atoms), "nvalence": float(calc.wfs.nvalence),
+              "total_energy": float(energy),
               "fermi": fermi, "nbands_engine": len(e_all), "bands_written": [band0 + 1, int(keep[-1]) + 1],
               "electrons_below_window": float(f_all[:band0].sum())}
     nocc = int(round(calc.wfs.nvalence)) // 2
@@ -321,7 +324,8 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
             rho = sum(calc.get_pseudo_wave_function(band=n - 1, kpt=0, spin=0, pad=True) ** 2 for n in st["bands"])
             dv = atoms.get_volume() / rho.size
             record["state_cube"] = {"bands": st["bands"], "grid": list(rho.shape), "integral": float(rho.sum() * dv),
-                                    "quantity": "sum of |psi|^2 over the multiplet, 1/Angstrom^3 (pseudo); bands 1-based"}
+                                    "quantity": "sum of |psi|^2 over the multiplet, 1/Angstrom^3 (pseudo); "
+                                                "bands 1-based"}
             if world.rank == 0:
                 _write_cube_gz(folder / "state.cube.gz", atoms, rho)
     if cubes and ("_r" not in case) and (case.endswith("/host") or f"/V_{HOSTS[info['host']][2]}" in case):
