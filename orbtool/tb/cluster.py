@@ -26,6 +26,8 @@ import numpy as np
 
 from ..errors import ModelError
 from ._compiled import Compiled
+from ._evaluate import CompiledCluster
+from ._levels import Levels
 from .elements import common_source, term_values, valence_electrons
 from .scaling import DistanceLaw, make_law
 from .slater_koster import ORBITAL_NAMES, n_orbitals
@@ -45,33 +47,6 @@ class Parameter:
     upper: float
     unit: str
     doc: str
-
-
-@dataclass(frozen=True, eq=False)
-class Levels:
-    """Cluster levels for a batch of B parameter sets/geometries.
-
-    Attributes
-    ----------
-    energies : ndarray (B, nlevel)  eigenvalues, eV, ascending.
-    vectors : ndarray (B, nbasis, nlevel)  eigenvectors (columns).
-    index : ndarray (B,) int  rank of the defect level.
-    level : ndarray (B,)  defect-level energy, eV (model scale, not yet referred to the VBM).
-    s_weight, p_weight, d_weight : ndarray (B,)  orbital character of the defect level (sum 1).
-    shell1_weight : ndarray (B,)  weight on first-shell atoms; ``dangling_weight`` on the dangling hybrids.
-    atom_weight : ndarray (B, natom)  weight per cluster atom (averaged over a degenerate multiplet).
-    """
-
-    energies: np.ndarray
-    vectors: np.ndarray
-    index: np.ndarray
-    level: np.ndarray
-    s_weight: np.ndarray
-    p_weight: np.ndarray
-    d_weight: np.ndarray
-    shell1_weight: np.ndarray
-    dangling_weight: np.ndarray
-    atom_weight: np.ndarray
 
 
 def _mic_vectors(atoms, indices, origin):
@@ -257,13 +232,16 @@ class ClusterModel:
 
     # ------------------------------------------------------------------ geometry
     def vectors_from(self, geometry) -> np.ndarray:
-        """Site→atom vectors (Å) of the cluster atoms in new Atoms (minimum image) or an array (natom,3)."""
+        """Site→atom vectors (Å) of the cluster atoms in new Atoms (minimum image) or an array (natom,3).
+
+        For Atoms the vacancy is carried over in fractional coordinates of the new cell and checked
+        (empty, first shell nearest); ModelError when the vacancy is not there (see ``_locate``)."""
         if geometry is None:
             return self.vectors
         if hasattr(geometry, "get_positions"):
-            if len(geometry) <= int(self.indices.max()):
-                raise ModelError(f"geometry has {len(geometry)} atoms but the cluster uses index {self.indices.max()}")
-            return _mic_vectors(geometry, self.indices, self.site_position)
+            from ._locate import site_in
+
+            return _mic_vectors(geometry, self.indices, site_in(self, geometry))
         v = np.asarray(geometry, dtype=float)
         if v.shape[-2:] != self.vectors.shape:
             raise ModelError(f"cluster vectors must have shape (..., {len(self.indices)}, 3), got {v.shape}")
@@ -283,8 +261,6 @@ class ClusterModel:
 
     def compile(self, geometry=None):
         """Cache the geometry-dependent parts for fast evaluation (one or a batch of geometries)."""
-        from ._evaluate import CompiledCluster
-
         vec = self.vectors_from(geometry)
         lmax = 1 if self.orbitals == "hybrid" else self.lmax
         return CompiledCluster(self, Compiled(vec.reshape(-1, *self.vectors.shape), lmax, self.pairs,

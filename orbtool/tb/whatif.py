@@ -1,7 +1,11 @@
 """What-if engine on a fitted cluster model: predictions with uncertainty bands and batched scans.
 
 Knobs (all relative to the fitted model of one case):
-* ``geometry`` — new ase.Atoms (cluster vectors by minimum image about the site) or vectors (natom, 3);
+* ``geometry`` — new ase.Atoms or vectors (natom, 3). For Atoms the fitted vacancy is located in the
+  given cell (carried over in fractional coordinates, then checked: the point must be empty and its
+  nearest atoms the model's first shell; the cluster atoms must be the model's elements or the
+  ``swap`` targets) and refused with a ModelError otherwise — a geometry with the vacancy elsewhere is
+  never measured around the fitted case's site;
 * ``swap`` — {"Sn": "Ge"}: on-site energies of the old element replaced by the new element's term
   values from the same table (the fitted shift of the old element is kept: it absorbs the table's
   systematic error); bond lengths are those of ``geometry`` (no relaxation is implied);
@@ -20,6 +24,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..errors import FitError, ModelError
+from ._locate import check_elements
 from .elements import term_values
 from .symmetry import class_columns, label_levels
 
@@ -83,7 +88,9 @@ def _compiled(fit, case, geometry, swap):
             cache[key] = model.compile()
             cache[key].swap = dict(swap or {})
         return cache[key]
-    cc = model.compile(geometry)
+    cc = model.compile(geometry)  # locates the vacancy in the geometry first (ModelError when not there)
+    if hasattr(geometry, "get_positions"):
+        check_elements(fit.problem.models[case], geometry, swap)
     cc.swap = dict(swap or {})
     return cc
 
