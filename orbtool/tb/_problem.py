@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .host_bands import model_vbm
+
 
 class Problem:
     """Maps the global parameter vector to per-case parameters and residuals (batched)."""
@@ -36,6 +38,7 @@ class Problem:
         cc = self.compiled[case]
         full = cc.model.defaults()
         full.update(p)
+        vbm = vbm + model_vbm(cc.model, full)
         lv = cc.solve(full)
         sp = lv.s_weight + lv.p_weight
         s_frac = np.divide(lv.s_weight, sp, out=np.zeros_like(sp), where=sp > 0)

@@ -102,13 +102,14 @@ class ClusterModel:
     modes: dict = field(default_factory=dict)
     notes: tuple = ()
     options: dict = field(default_factory=dict)
+    host_bands: object = None
 
     # ------------------------------------------------------------------ construction
     @classmethod
     def around(cls, site, orbitals: str = "hybrid", scaling="harrison", *, term_values: str = "auto",
                onsite: dict | None = None, s_fraction: float = 0.25, level="auto", charge: int = 0,
                electrons: float | None = None, shells: int | None = None, pair_cutoff: float | None = None,
-               r_d: dict | None = None, **law_options) -> "ClusterModel":
+               r_d: dict | None = None, edges: str = "constant", **law_options) -> "ClusterModel":
         """Build the model around a vacancy site.
 
         Parameters
@@ -133,6 +134,12 @@ class ClusterModel:
             first-shell distance (full clusters: nearest-neighbour bonds).
         r_d : dict
             d-state radii (Å) per element for Harrison's d couplings.
+        edges : {"constant", "model"}
+            How levels are referred to the VBM. "constant": the fit's ``vbm`` parameter is the
+            model-scale VBM, the same for every case and knob. "model": the VBM of the pristine host
+            (``site.host``) from the same Slater–Koster parameters (:mod:`orbtool.tb.host_bands`), so a
+            swap or a strain moves the edge too; ``vbm`` is then a documented alignment offset between
+            the model's and the DFT's band edge, fitted once.
         """
         if orbitals not in _LMAX:
             raise ModelError(f"orbitals must be 'hybrid', 's', 'sp' or 'spd', got {orbitals!r}")
@@ -157,9 +164,15 @@ class ClusterModel:
             vec = np.array([a.vector for a in atoms], dtype=float)
         d1 = float(np.mean(np.linalg.norm(vec[: len(first)], axis=1)))
         law = make_law(scaling, d1, **law_options)
-        source = common_source(set(els) - set(onsite or {}), term_values)
+        if edges not in ("constant", "model"):
+            raise ModelError(f"edges must be 'constant' or 'model', got {edges!r}")
+        host = getattr(site, "host", None) if edges == "model" else None
+        if edges == "model" and host is None:
+            raise ModelError("edges='model' needs the pristine host structure (site.host)")
+        host_els = set(host.get_chemical_symbols()) if host is not None else set()
+        source = common_source((set(els) | host_els) - set(onsite or {}), term_values)
         table, notes = {}, [f"term values: {source}", f"couplings: {law.describe()}"]
-        for el in sorted(set(els)):
+        for el in sorted(set(els) | host_els):
             if onsite and el in onsite:
                 vals = tuple(float(x) for x in onsite[el]) + (np.nan,) * (3 - len(onsite[el]))
                 notes.append(f"on-site energies of {el} given by the user")
@@ -186,14 +199,21 @@ class ClusterModel:
         ops = np.asarray(getattr(site, "operations", np.eye(3)[None]), dtype=float).reshape(-1, 3, 3)
         cell = None if defect is None else np.array(defect.cell[:])
         pbc = False if defect is None else np.array(defect.pbc)
+        bands = None
+        if host is not None:
+            from .host_bands import HostBands
+
+            bands = HostBands.of(host, table, law)
+            notes.append(f"band edges: Γ-point sp model of the host ({len(host)} atoms) with the same parameters")
         return cls(orbitals=orbitals, law=law, site_position=position, indices=idx, elements=els, shell=shell,
                    vectors=vec, pairs=pairs, onsite=table, term_source=source,
                    s_fraction=float(s_fraction), level=level,
                    electrons=electrons if electrons is not None else _formal_electrons(els[: len(first)], charge),
                    point_group=str(getattr(site, "point_group", "C1")), operations=ops, cell=cell, pbc=pbc,
                    r_d=dict(r_d or {}), modes=_modes(site, vec[: len(first)]), notes=tuple(notes),
+                   host_bands=bands,
                    options={"onsite": dict(onsite or {}), "charge": charge, "electrons": electrons,
-                            "pair_cutoff": pair_cutoff, "shells": shells})
+                            "pair_cutoff": pair_cutoff, "shells": shells, "edges": edges})
 
     def with_site(self, site, charge: int | None = None) -> "ClusterModel":
         """The same settings (distance law with the same d0, term-value source, user on-site energies,
@@ -203,7 +223,7 @@ class ClusterModel:
                                    onsite=o.get("onsite") or None, s_fraction=self.s_fraction, level=self.level,
                                    charge=o.get("charge", 0) if charge is None else charge,
                                    electrons=o.get("electrons"), shells=o.get("shells"),
-                                   pair_cutoff=o.get("pair_cutoff"), r_d=self.r_d)
+                                   pair_cutoff=o.get("pair_cutoff"), r_d=self.r_d, edges=o.get("edges", "constant"))
 
     # ------------------------------------------------------------------ parameters
     @property

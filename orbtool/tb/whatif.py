@@ -26,6 +26,7 @@ import numpy as np
 from ..errors import FitError, ModelError
 from ._locate import check_elements
 from .elements import term_values
+from .host_bands import model_vbm
 from .symmetry import class_columns, label_levels
 
 __all__ = ["Prediction", "predict", "scan"]
@@ -82,6 +83,11 @@ def _compiled(fit, case, geometry, swap):
             tv = term_values(new, model.term_source)
             onsite[old] = (tv.s, np.nan if tv.p is None else tv.p, np.nan if tv.d is None else tv.d)
         model = replace(model, onsite=onsite)
+    if model.host_bands is not None and (swap or hasattr(geometry, "get_positions")):
+        scale = 1.0
+        if hasattr(geometry, "get_positions") and model.cell is not None:
+            scale = float(abs(np.linalg.det(geometry.cell[:])) / abs(np.linalg.det(model.cell))) ** (1 / 3)
+        model = replace(model, host_bands=model.host_bands.swapped({}, scale, model.onsite))
     if geometry is None:
         cache = fit._cache.setdefault("compiled", {})
         if key not in cache:
@@ -106,6 +112,7 @@ def _params(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
     for old, new in (getattr(cc, "swap", None) or {}).items():
         if f"shift_{new}" in p and new not in cc.model.species:
             full[f"shift_{old}"] = p[f"shift_{new}"]
+    vbm = vbm + model_vbm(cc.model, full)  # the host's edge moves with swap/strain (edges="model")
     first_species = {cc.model.elements[i] for i in np.flatnonzero(cc.first)}
     for el in first_species:
         full[f"shift_{el}"] = full[f"shift_{el}"] + np.asarray(onsite_shift)
