@@ -122,3 +122,43 @@ def test_tb_import_graph_has_no_cycle():
 
     for n in graph:
         visit(n, [])
+
+
+@pytest.mark.parametrize("formula,crystal,a,n1", [("PbS", "rocksalt", 5.94, 6), ("InCl", "cesiumchloride", 3.9, 8)])
+def test_defect_level_follows_the_dft_state_not_valence_counting(formula, crystal, a, n1):
+    """Shared references, "Electron counting at a vacancy" (common practice, ionic counting): V_S⁰ next
+    to six Pb²⁺ holds 2 electrons and a halide vacancy next to eight In⁺-like cations holds 1 — one
+    non-degenerate a1g state — while group-valence counting puts 4 or 3 electrons into the
+    defect molecule and picks a higher level. Given the DFT multiplet's size, the model follows it."""
+    from orbtool.tb._problem import match_state
+
+    host = bulk(formula, crystal, a=a).repeat(3)
+    anion = [i for i, s in enumerate(host.get_chemical_symbols()) if s in ("S", "Cl")][13]
+    defect = host.copy()
+    del defect[anion]
+    site = locate_vacancy(host, defect)
+    assert len(site.first_shell) == n1
+    counted = ClusterModel.around(site, "hybrid")
+    assert counted.solve().label[0] != "a1g"          # the valence-counting rule misses the state
+    matched = match_state(counted, Target("v", 1.0, site=site, degeneracy=1, occupation=2.0))
+    lv = matched.solve()
+    assert lv.label[0] == "a1g" and int(lv.index[0]) == 0
+    assert any("no valence counting" in n for n in matched.notes)
+    res = fit(counted, [Target("v", 1.0, site=site, degeneracy=1, occupation=2.0)], free=["vbm"])
+    assert res.problem.models["v"].level == 0
+
+
+def test_s_fraction_target_is_measured_on_the_first_shell():
+    from types import SimpleNamespace
+
+    from orbtool.tb.targets import _state_targets
+
+    names = ("s", "py", "pz", "px")
+    ao = np.zeros((4, 4))
+    ao[0] = [0.1, 0.3, 0.0, 0.0]      # first-shell atom: s/(s+p) = 0.25
+    ao[3] = [0.6, 0.0, 0.0, 0.0]      # an s-rich atom elsewhere
+    state = SimpleNamespace(above_vbm=1.0, orbital_weights={"s": 0.7, "p": 0.3, "d": 0.0}, atom_orbital=ao,
+                            orbital_names=names, shell_fractions={}, edges=None, below_cbm=None)
+    site = SimpleNamespace(first_shell=(SimpleNamespace(index=0),))
+    t = _state_targets("c", state, site, 0.05, 0.05, 0.05, True, {}, 0)
+    assert t.s_fraction == pytest.approx(0.25)

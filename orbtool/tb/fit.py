@@ -28,6 +28,23 @@ from .targets import Target
 __all__ = ["fit", "FitResult", "FitParameter"]
 
 
+def knob_validation_lines() -> list:
+    """How well each knob was checked on real DFT, from ``orbtool/data/knob_validation.json`` (written by
+    the leave-one-host-out harness, tests/external/periodic/harness.py --write); [] when absent."""
+    import json
+    from importlib import resources
+
+    try:
+        rec = json.loads(resources.files("orbtool.data").joinpath("knob_validation.json").read_text("utf-8"))
+    except (FileNotFoundError, OSError, ValueError):
+        return []
+    sw, br = rec["swap"], rec["breathing"]
+    return [f"knob validation on real DFT ({rec['date']}, model: {rec['model']}): the cation knob was checked "
+            f"on {sw['n']} real swaps, RMS {sw['rms']:.2f} eV, sign right in {sw['sign_right']} of {sw['n']}; "
+            f"the breathing knob on {br['series']} series ({br['n']} leave-one-out predictions), RMS "
+            f"{br['rms']:.2f} eV. Predictions outside what was checked are extrapolations."]
+
+
 @dataclass(frozen=True)
 class FitParameter:
     """One entry of the fit's parameter vector (``name`` may be ``"<base>@<case>"`` when per-case)."""
@@ -278,6 +295,7 @@ class FitResult:
             lines.append(f"  warning: {', '.join(self.at_bounds)} stopped at a bound; "
                          "its uncertainty is not reliable")
         lines += [f"  note: {n}" for n in self.notes]
+        lines += [f"  {line}" for line in knob_validation_lines()]
         return "\n".join(lines)
 
     def to_dict(self) -> dict:
