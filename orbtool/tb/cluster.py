@@ -103,6 +103,7 @@ class ClusterModel:
     notes: tuple = ()
     options: dict = field(default_factory=dict)
     host_bands: object = None
+    swap_map: dict = field(default_factory=dict)
 
     # ------------------------------------------------------------------ construction
     @classmethod
@@ -269,6 +270,16 @@ class ClusterModel:
 
     def _prefactors(self, i, j):
         """Channel prefactors V(d0) (eV) for the pair (i, j): (lower-l on i, lower-l on j)."""
+        if self.law.kind == "overlap":
+            from .overlaps import wolfsberg_helmholz
+
+            if self.lmax > 1:
+                raise ModelError("the overlap (Wolfsberg–Helmholz) couplings cover s and p orbitals only")
+            d = float(np.linalg.norm(self.vectors[j] - self.vectors[i]))
+            ei, ej = (self.swap_map.get(self.elements[k], self.elements[k]) for k in (i, j))
+            fwd, rev = wolfsberg_helmholz(ei, ej, d, self.onsite[self.elements[i]], self.onsite[self.elements[j]])
+            fac = (d / self.law.d0) ** self.law.n  # the radial factor (d0/d)^n then gives V_WH at d_ij
+            return {c: v * fac for c, v in fwd.items()}, {c: v * fac for c, v in rev.items()}
         rd_i, rd_j = self.r_d.get(self.elements[i]), self.r_d.get(self.elements[j])
         fwd, rev = {}, {}
         for ch in _channels(self.lmax):

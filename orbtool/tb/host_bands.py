@@ -53,6 +53,7 @@ class HostBands:
     onsite: dict
     law: object
     n_occupied: int
+    as_element: dict = field(default_factory=dict)
     _memo: dict = field(default_factory=dict, repr=False)
 
     @classmethod
@@ -81,15 +82,13 @@ class HostBands:
         return cls(tuple(host.get_chemical_symbols()), D, i, j, table, law, ne // 2)
 
     def swapped(self, swap: dict, scale: float = 1.0, onsite: dict | None = None) -> "HostBands":
-        """The same host with elements replaced (``swap`` old -> new, on-site energies from ``onsite``)
-        and every bond scaled by ``scale`` (a host of another lattice constant)."""
+        """The same host with elements replaced (``swap`` old -> new; the on-site energies of ``onsite`` are
+        keyed by the old names, as in the cluster, so fitted shifts stay attached) and every bond scaled
+        by ``scale`` (a host of another lattice constant)."""
         table = dict(self.onsite)
         table.update(onsite or {})
-        symbols = tuple(swap.get(s, s) for s in self.symbols)
-        missing = set(symbols) - set(table)
-        if missing:
-            raise ModelError(f"no on-site energies for {sorted(missing)} in the host band model")
-        return replace(self, symbols=symbols, vectors=self.vectors * float(scale), onsite=table, _memo={})
+        return replace(self, vectors=self.vectors * float(scale), onsite=table, as_element={**self.as_element, **swap},
+                       _memo={})
 
     def levels(self, coupling_scale, n, shifts: dict) -> np.ndarray:
         """(B, 4·natom) eigenvalues (eV) for batches of ``coupling_scale`` and ``n`` (or q) and per-element
@@ -101,9 +100,7 @@ class HostBands:
         natom = len(self.symbols)
         d = np.linalg.norm(self.vectors, axis=1)
         cos = self.vectors / d[:, None]
-        unit = {ch: self.law.prefactor(ch) for ch in _CHANNELS}
-        blocks = {ch: sk_block(cos, {ch: np.ones(len(d))}, 1, 1) * unit[ch] for ch in _CHANNELS}
-        base = sum(blocks.values())  # (npair, 4, 4) at d0 without the radial factor
+        base = sk_block(cos, self._prefactors(d), 1, 1, V_reverse=self._prefactors(d, reverse=True))
         uniq, inv = np.unique(np.broadcast_to(nn, (B,)), return_inverse=True)
         H = np.zeros((B, natom, 4, natom, 4))
         for k, x in enumerate(uniq):
@@ -122,6 +119,25 @@ class HostBands:
         k = np.arange(4 * natom)
         H[:, k, k] += diag
         return np.linalg.eigvalsh(H)
+
+    def _prefactors(self, d, reverse=False) -> dict:
+        """Per-bond channel values at d0 (eV): Harrison's universal ones, or Wolfsberg–Helmholz ones
+        (law "overlap") per element pair at the bond's length, scaled by (d/d0)^n like the cluster's."""
+        if self.law.kind != "overlap":
+            return {ch: np.full(len(d), self.law.prefactor(ch)) for ch in _CHANNELS}
+        from .overlaps import wolfsberg_helmholz
+
+        out = {ch: np.empty(len(d)) for ch in _CHANNELS}
+        memo = {}
+        for k, (a, b, dk) in enumerate(zip(self.i, self.j, d)):
+            key = (self.symbols[a], self.symbols[b], round(float(dk), 5))
+            if key not in memo:
+                ea, eb = (self.as_element.get(s, s) for s in key[:2])
+                fwd, rev = wolfsberg_helmholz(ea, eb, key[2], self.onsite[key[0]], self.onsite[key[1]])
+                memo[key] = rev if reverse else fwd
+            for ch in _CHANNELS:
+                out[ch][k] = memo[key][ch] * (dk / self.law.d0) ** self.law.n
+        return out
 
     def edges(self, coupling_scale, n, shifts: dict) -> tuple:
         """(VBM, CBM) arrays (B,) in eV on the model scale."""

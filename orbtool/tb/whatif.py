@@ -82,12 +82,12 @@ def _compiled(fit, case, geometry, swap):
         for old, new in swap.items():
             tv = term_values(new, model.term_source)
             onsite[old] = (tv.s, np.nan if tv.p is None else tv.p, np.nan if tv.d is None else tv.d)
-        model = replace(model, onsite=onsite)
+        model = replace(model, onsite=onsite, swap_map={**model.swap_map, **swap})
     if model.host_bands is not None and (swap or hasattr(geometry, "get_positions")):
         scale = 1.0
         if hasattr(geometry, "get_positions") and model.cell is not None:
             scale = float(abs(np.linalg.det(geometry.cell[:])) / abs(np.linalg.det(model.cell))) ** (1 / 3)
-        model = replace(model, host_bands=model.host_bands.swapped({}, scale, model.onsite))
+        model = replace(model, host_bands=model.host_bands.swapped(dict(swap or {}), scale, model.onsite))
     if geometry is None:
         cache = fit._cache.setdefault("compiled", {})
         if key not in cache:

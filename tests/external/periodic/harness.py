@@ -184,6 +184,10 @@ VARIANTS = {
     "identity": Spec("+ DFT state identity (multiplet size), first-shell s share", identity=True),
     "identity+edges": Spec("+ band edges from the model (Γ sp bands of the host)", identity=True,
                            around={"orbitals": "hybrid", "scaling": "harrison", "edges": "model"}),
+    "identity+overlap": Spec("+ element-aware couplings (Wolfsberg–Helmholz, ANO overlaps)", identity=True,
+                             around={"orbitals": "hybrid", "scaling": "overlap"}),
+    "identity+overlap+edges": Spec("+ overlap couplings and model band edges", identity=True,
+                                   around={"orbitals": "hybrid", "scaling": "overlap", "edges": "model"}),
 }
 #: orbtool's defaults at this commit (targets_from_case passes the multiplet size; edges="constant")
 DEFAULT = "identity"
