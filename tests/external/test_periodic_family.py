@@ -111,3 +111,18 @@ def test_knob_prediction(rows, name):
     if r.sign_right is not None:
         assert r.sign_right, (name, r.engine, r.predicted)
     assert abs(r.error) <= TOLERANCE, (name, r.engine, r.predicted)
+
+
+def test_fit_summaries_quote_the_harness(rows):
+    """orbtool/data/knob_validation.json (read by FitResult.summary) holds today's harness numbers for
+    orbtool's default model: rerun `python tests/external/periodic/harness.py --write` when they move."""
+    import json
+
+    from orbtool.tb.fit import knob_validation_lines
+
+    rec = json.loads(harness.KNOBS.read_text())
+    now = harness.knob_record([r for r in rows.values()], harness.VARIANTS[harness.DEFAULT])
+    for kind in ("swap", "breathing"):
+        assert rec[kind]["n"] == now[kind]["n"], kind
+        assert rec[kind]["rms"] == pytest.approx(now[kind]["rms"], abs=0.01), kind
+    assert "the cation knob was checked on" in knob_validation_lines()[0]

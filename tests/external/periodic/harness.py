@@ -135,8 +135,8 @@ def observe(name: str, folder: Path, host_folder: Path, bands: list, *, charge: 
 
 def observe_periodic(case: str, root: Path = DATA) -> Observed:
     rec = record(case, root)
-    band0 = rec["bands_written"][0] - 1        # projection band k is engine band band0 + k (0-based)
-    bands = [n - band0 for n in rec["defect_state"]["bands"]]
+    first = rec["bands_written"][0]            # 1-based engine band of projection band 0
+    bands = [n - first for n in rec["defect_state"]["bands"]]  # defect_state bands are 1-based
     return observe(case, root / case, root / case.split("/")[0] / "host", bands, engine=rec)
 
 
@@ -304,16 +304,19 @@ def cautions(hosts) -> list:
 def inventory(root: Path = DATA) -> str:
     """Cases present, engine versions and timings, from each ``engine.json`` / ``bands.json``."""
     out = ["| case | engine (ASE) | atoms | SCF wall time (s) | engine's defect state: E (eV), occupation, "
-           "first-shell share |", "|---|---|---|---|---|"]
+           "share of \\|ψ̃\\|² within the first-shell distance |", "|---|---|---|---|---|"]
     for f in sorted(root.glob("*/*/engine.json")) + sorted(root.glob("*/bands/bands.json")):
         rec = json.loads(f.read_text())
         case = f"{f.parent.parent.name}/{f.parent.name}"
         if f.name == "bands.json":
+            host = f.parent.parent / "host" / "engine.json"
+            gamma = json.loads(host.read_text())["homo_lumo_spin_paired"][0] if host.exists() else float("nan")
             out.append(f"| {case} | GPAW {rec['engine_version']} (ASE {rec['ase_version']}) | 2 | "
-                       f"{rec['wall_time_s']} | true gap {rec['gap']:.3f} eV, VBM {rec['vbm']:.3f} eV |")
+                       f"{rec['wall_time_s']} | true gap {rec['gap']:.3f} eV; true VBM − supercell Γ VBM = "
+                       f"{rec['vbm'] - gamma:+.3f} eV |")
             continue
         st = rec.get("defect_state")
-        state = (f"{st['energy']:.3f}, {st['occupation']:.2f}, {st['first_shell_share']:.2f} "
+        state = (f"{st['energy']:.3f}, {st['occupation']:.2f}, {st.get('sphere_fraction', float('nan')):.2f} "
                  f"({len(st['bands'])} band{'s' if len(st['bands']) > 1 else ''})" if st else "—")
         out.append(f"| {case} | GPAW {rec['engine_version']} (ASE {rec['ase_version']}) | {rec['natoms']} | "
                    f"{rec['wall_time_s']['scf']} | {state} |")
