@@ -27,6 +27,7 @@ TOLERANCE = 0.15  # eV, the issue's acceptance
 #: rows that fail the acceptance today: row name -> (engine shift, predicted shift) measured, eV
 FAILING_TODAY = {
     "pyscf Li→Na (Li14F12⁺ cluster)": (-0.428, +0.278),
+    "ZnS→CdS V_S": (-0.312, +0.932),
 }
 
 DEFECTS = [c for c in harness.EXPECTED_CASES if "/V_" in c]
