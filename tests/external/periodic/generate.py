@@ -103,11 +103,22 @@ def case_list() -> list[str]:
     return cases
 
 
-def host_cell(name: str):
+def primitive(name: str):
+    """Primitive cell of host ``name`` (2 atoms), as ASE's ``bulk`` builds it."""
+    from ase import Atoms
     from ase.build import bulk
-    structure, cat, an, a, rep = HOSTS[name]
-    atoms = bulk(f"{cat}{an}", structure, a=a)           # primitive cell (2 atoms)
-    return atoms.repeat((rep, rep, rep))
+    structure, cat, an, a, _ = HOSTS[name]
+    try:
+        return bulk(f"{cat}{an}", structure, a=a)
+    except RuntimeError:          # ASE 3.22 refuses some elements (P) in bulk(); same cell and basis by hand
+        assert structure == "zincblende"
+        cell = a / 2 * np.array([[0, 1, 1], [1, 0, 1], [1, 1, 0]])
+        return Atoms(f"{cat}{an}", positions=[[0, 0, 0], [a / 4, a / 4, a / 4]], cell=cell, pbc=True)
+
+
+def host_cell(name: str):
+    rep = HOSTS[name][4]
+    return primitive(name).repeat((rep, rep, rep))
 
 
 def build(case: str):
@@ -336,10 +347,8 @@ def run_bands(host: str, out: Path) -> dict:
     """True band edges of ``host`` from a k-resolved primitive-cell run (same recipe), on the band path."""
     import ase
     import gpaw
-    from ase.build import bulk
     from gpaw.mpi import world
-    structure, cat, an, a, _ = HOSTS[host]
-    prim = bulk(f"{cat}{an}", structure, a=a)
+    prim = primitive(host)
     folder = out / host / "bands"
     folder.mkdir(parents=True, exist_ok=True)
     t0 = time.time()
