@@ -28,6 +28,7 @@ TOLERANCE = 0.15  # eV, the issue's acceptance
 FAILING_TODAY = {
     "pyscf Li→Na (Li14F12⁺ cluster)": (-0.428, +0.278),
     "ZnS→CdS V_S": (-0.312, +0.932),
+    "NaCl→KCl V_Cl": (+0.242, +1.449),
 }
 
 DEFECTS = [c for c in harness.EXPECTED_CASES if "/V_" in c]

@@ -53,7 +53,8 @@ BREATHING = ("ZnS", "AlP", "CaO", "NaCl", "CsCl")
 
 #: Every case the committed family must hold (the test fails when one is missing). One place.
 EXPECTED_CASES = (
-    "ZnS/host", "ZnS/V_S", "CdS/host", "CdS/V_S", "NaCl/host", "NaCl/V_Cl", "KCl/host",
+    "ZnS/host", "ZnS/V_S", "CdS/host", "CdS/V_S", "NaCl/host", "NaCl/V_Cl", "KCl/host", "KCl/V_Cl",
+    "CsCl/host", "CsCl/V_Cl", "ZnS/bands", "CdS/bands",
 )
 
 START, END = "<!-- harness-table:start -->", "<!-- harness-table:end -->"
