@@ -244,9 +244,13 @@ def breathing_rows(series: list, spec: Spec, label: str) -> list:
     return rows
 
 
-def periodic_rows(spec: Spec = BASELINE, root: Path = DATA, cache: dict | None = None) -> list:
-    """Every row the committed periodic family supports."""
+def periodic_rows(spec: Spec = BASELINE, root: Path = DATA, cache: dict | None = None,
+                  everything: bool = False) -> list:
+    """Every row the expected cases support (``everything``: every case present in ``root``)."""
     cache = {} if cache is None else cache
+
+    def have(case, root):
+        return present(case, root) and (everything or case in EXPECTED_CASES)
 
     def get(case):
         if case not in cache:
@@ -256,13 +260,13 @@ def periodic_rows(spec: Spec = BASELINE, root: Path = DATA, cache: dict | None =
     rows = []
     for a, b in PAIRS:
         need = [f"{a}/host", ideal(a), f"{b}/host", ideal(b)]
-        if not all(present(c, root) for c in need):
+        if not all(have(c, root) for c in need):
             continue
-        first = [get(c) for c in breathing_cases(a) if present(c, root)]
+        first = [get(c) for c in breathing_cases(a) if have(c, root)]
         rows.append(swap_row(first, get(ideal(b)), HOSTS[a][0], HOSTS[b][0], spec, f"{a}→{b} V_{HOSTS[a][1]}"))
     for h in BREATHING:
         cs = breathing_cases(h)
-        if all(present(c, root) for c in cs) and present(f"{h}/host", root):
+        if all(have(c, root) for c in cs) and have(f"{h}/host", root):
             rows += breathing_rows([get(c) for c in cs], spec, f"{h} V_{HOSTS[h][1]} ")
     return rows
 
@@ -326,8 +330,8 @@ def inventory(root: Path = DATA) -> str:
     return "\n".join(out)
 
 
-def evaluate(spec: Spec, cache: dict, pcache: dict) -> list:
-    return periodic_rows(spec, cache=cache) + pyscf_rows(spec, cache=pcache)
+def evaluate(spec: Spec, cache: dict, pcache: dict, everything: bool = False) -> list:
+    return periodic_rows(spec, cache=cache, everything=everything) + pyscf_rows(spec, cache=pcache)
 
 
 def comparison(results: dict) -> str:
@@ -357,10 +361,10 @@ def knob_record(rows: list, spec: Spec) -> dict:
             "source": "tests/external/periodic/harness.py (GPAW periodic family + pyscf clusters)"}
 
 
-def report(variants=None) -> tuple:
+def report(variants=None, everything: bool = False) -> tuple:
     t0 = time.time()
     cache, pcache = {}, {}
-    results = {k: evaluate(VARIANTS[k], cache, pcache) for k in (variants or VARIANTS)}
+    results = {k: evaluate(VARIANTS[k], cache, pcache, everything) for k in (variants or VARIANTS)}
     rows = results.get(DEFAULT) or next(iter(results.values()))
     per = [r for r in rows if not r.case.startswith("pyscf")]
     pys = [r for r in rows if r.case.startswith("pyscf")]
@@ -391,8 +395,10 @@ def main(argv=None) -> int:
     ap.add_argument("--write", action="store_true", help="write the tables into periodic/README.md and the "
                     "knob-validation record into orbtool/data/knob_validation.json")
     ap.add_argument("--variants", nargs="*", help=f"model variants to compare (default all: {list(VARIANTS)})")
+    ap.add_argument("--all", action="store_true", help="use every case present in data/, not only EXPECTED_CASES "
+                    "(to measure new cases before adding them to EXPECTED_CASES)")
     args = ap.parse_args(argv)
-    rows, _, text = report(args.variants)
+    rows, _, text = report(args.variants, args.all)
     print(text)
     if args.write:
         write_readme(text)
