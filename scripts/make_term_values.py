@@ -155,7 +155,11 @@ def main(argv=None):
     ap.add_argument("--update", action="store_true", help="update the given columns of an existing --out file")
     ap.add_argument("--out", default=str(Path(__file__).resolve().parents[1] / "orbtool" / "data" /
                                          "term_values_lda.json"))
+    ap.add_argument("--orbitals", action="store_true", help="write orbtool/data/valence_orbitals.json instead")
     args = ap.parse_args(argv)
+    if args.orbitals:
+        return valence_orbitals(args.elements, Path(__file__).resolve().parents[1] / "orbtool" / "data" /
+                                "valence_orbitals.json")
     old = json.loads(Path(args.out).read_text()) if args.update else None
     table = dict(old["elements"]) if old else {}
     columns = [c for c in ("nr", "sr") if c in args.columns.split(",")]
@@ -176,6 +180,49 @@ def main(argv=None):
                   "  ".join(f"{k} {v:9.4f}" for k, v in entry[tag].items()), flush=True)
         table[sym] = entry
         write(args.out, table)
+
+
+def valence_orbitals(symbols, out):
+    """Write the radial shape of each element's valence s and p orbital (``--orbitals``).
+
+    The valence shell of l is the highest occupied one (the lowest empty p where the atom has none,
+    as for the term values); its shape is that shell's ANO-RCC contraction (the atomic natural
+    orbitals of B. O. Roos et al., J. Phys. Chem. A 108, 2851 (2004), as shipped with pyscf):
+    primitive Gaussian exponents (Bohr⁻²) and contraction coefficients of the normalised
+    primitives, in pyscf's convention. orbtool.tb.overlaps computes two-centre overlaps from them.
+    """
+    import pyscf
+    from pyscf import gto
+    from pyscf.data import elements
+
+    table = {}
+    for sym in symbols:
+        config = elements.CONFIGURATION[elements.charge(sym)]
+        entry = {}
+        for l, name in ((0, "s"), (1, "p")):
+            n_occ = -(-config[l] // (2 * (2 * l + 1)))
+            column = n_occ - 1 if (l == 0 or config[1] > config_core_p(sym)) else n_occ
+            blocks = [b for b in gto.basis.load(BASIS, sym) if b[0] == l]
+            rows = np.array(blocks[0][1:], dtype=float)
+            entry[name] = {"exponents": rows[:, 0].tolist(), "coefficients": rows[:, 1 + column].tolist(),
+                           "contraction": int(column), "occupied": bool(column < n_occ)}
+        table[sym] = entry
+    doc = {"description": "valence s and p orbital shapes: ANO-RCC contractions (Roos et al. 2004) as shipped "
+                          f"with pyscf {pyscf.__version__}; exponents in Bohr^-2, coefficients of normalised "
+                          "primitive Gaussians; 'occupied' false = the lowest empty p of the atom",
+           "script": "scripts/make_term_values.py --orbitals", "date": datetime.date.today().isoformat(),
+           "elements": table}
+    Path(out).write_text(json.dumps(doc, indent=1) + "\n")
+
+
+def config_core_p(symbol):
+    """p electrons of the atom's core (noble-gas core, plus nothing else): a valence p shell is occupied
+    when the atom has more p electrons than its core."""
+    from pyscf.data import elements
+
+    z = elements.charge(symbol)
+    core = max(n for n in (0, 2, 10, 18, 36, 54, 86) if n < z) if z > 2 else 0
+    return elements.CONFIGURATION[core][1] if core else 0
 
 
 def write(out, table):

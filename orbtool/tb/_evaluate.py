@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import ModelError
-from .cluster import Levels
+from ._levels import Levels
 
 _DEGENERATE = 1e-5  # eV: levels closer than this are one multiplet
 
@@ -156,7 +156,26 @@ class CompiledCluster:
             np.add.at(atom_w.T, self.orb_atom, w_orb.T)
         shell1 = atom_w[:, self.first].sum(1)
         dang_w = (dang * multiplet).sum(1) / deg
-        return Levels(E, V, idx, level, s_w, p_w, d_w, shell1, dang_w, atom_w)
+        return Levels(E, V, idx, level, s_w, p_w, d_w, shell1, dang_w, atom_w, labeller=self._labeller(E, V))
+
+    def _labeller(self, E, V):
+        """Labels of batch entry b from the site's point group (multiplets as a whole; see symmetry.py)."""
+        from .symmetry import class_columns, label_levels
+
+        model = self.model
+
+        def labels(b):
+            g = b % self.G
+            if not hasattr(self, "_classes"):
+                try:
+                    self._classes = class_columns(model.point_group, model.operations, self.vectors[0][self.first])
+                except ValueError:
+                    self._classes = None
+            if self._classes is None:
+                return ["?"] * E.shape[1]
+            return label_levels(E[b], V[b], self.vectors[g], model.point_group, model.operations, self.c.lmax,
+                                model.orbitals == "hybrid", classes_cols=self._classes)
+        return labels
 
     def _dangling(self, V, p, B):
         """Weight of each level on the dangling hybrids of the first-shell atoms (s, p part)."""

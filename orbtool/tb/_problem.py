@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .host_bands import model_vbm
+
 
 class Problem:
     """Maps the global parameter vector to per-case parameters and residuals (batched)."""
@@ -36,6 +38,7 @@ class Problem:
         cc = self.compiled[case]
         full = cc.model.defaults()
         full.update(p)
+        vbm = vbm + model_vbm(cc.model, full)
         lv = cc.solve(full)
         sp = lv.s_weight + lv.p_weight
         s_frac = np.divide(lv.s_weight, sp, out=np.zeros_like(sp), where=sp > 0)
@@ -99,8 +102,40 @@ def collect_models(model, targets):
         if t.case in models:
             continue
         if t.site is None and t.charge is None:
-            models[t.case] = model
+            m = model
         else:
             site = t.site if t.site is not None else _SiteOf(model)
-            models[t.case] = model.with_site(site, charge=t.charge)
+            m = model.with_site(site, charge=t.charge)
+        models[t.case] = match_state(m, t)
     return models
+
+
+def match_state(model, target, tol: float = 1e-5):
+    """The hybrid model with ``level="auto"`` follows the DFT state's identity when the target knows it:
+    the lowest cluster multiplet with as many levels as the DFT multiplet (``target.degeneracy``), at
+    the model's default parameters. No valence-counting rule is used then (counting by group valence
+    fails for 6- and 8-fold sites and lone-pair cations; see the project's references, "Electron
+    counting"). Without a degeneracy the model is returned unchanged (formal counting)."""
+    from dataclasses import replace
+
+    if model.orbitals != "hybrid" or model.level != "auto" or not getattr(target, "degeneracy", None):
+        return model
+    lv = model.solve()
+    E = lv.energies[0]
+    start, groups = 0, []
+    while start < len(E):
+        stop = start + 1
+        while stop < len(E) and abs(E[stop] - E[start]) < tol:
+            stop += 1
+        groups.append((start, stop))
+        start = stop
+    hits = [g for g in groups if g[1] - g[0] == target.degeneracy]
+    if not hits:
+        return replace(model, notes=model.notes + (
+            f"no cluster multiplet of {target.degeneracy} levels matches the DFT state: formal counting used",))
+    k = hits[0][0]
+    label = lv.labels[0][k]
+    occ = "" if target.occupation is None else f", {target.occupation:g} e"
+    return replace(model, level=int(k), notes=model.notes + (
+        f"defect level: the lowest {label} multiplet ({target.degeneracy} level(s)), matching the DFT state "
+        f"({target.degeneracy} band(s){occ}); no valence counting",))

@@ -21,7 +21,7 @@ class StackedHybrid:
         cases = list(problem.by_case)
         comp = [problem.compiled[c] for c in cases]
         models = [cc.model for cc in comp]
-        if any(m.orbitals != "hybrid" for m in models):
+        if any(m.orbitals != "hybrid" or m.host_bands is not None for m in models):
             return None
         shapes = {(len(m.elements), len(m.pairs)) for m in models}
         laws = {(m.law.kind, m.law.d0, m.law.r_cut, m.law.cut_width) for m in models}

@@ -26,6 +26,8 @@ import numpy as np
 
 from ..errors import ModelError
 from ._compiled import Compiled
+from ._evaluate import CompiledCluster
+from ._levels import Levels
 from .elements import common_source, term_values, valence_electrons
 from .scaling import DistanceLaw, make_law
 from .slater_koster import ORBITAL_NAMES, n_orbitals
@@ -45,33 +47,6 @@ class Parameter:
     upper: float
     unit: str
     doc: str
-
-
-@dataclass(frozen=True, eq=False)
-class Levels:
-    """Cluster levels for a batch of B parameter sets/geometries.
-
-    Attributes
-    ----------
-    energies : ndarray (B, nlevel)  eigenvalues, eV, ascending.
-    vectors : ndarray (B, nbasis, nlevel)  eigenvectors (columns).
-    index : ndarray (B,) int  rank of the defect level.
-    level : ndarray (B,)  defect-level energy, eV (model scale, not yet referred to the VBM).
-    s_weight, p_weight, d_weight : ndarray (B,)  orbital character of the defect level (sum 1).
-    shell1_weight : ndarray (B,)  weight on first-shell atoms; ``dangling_weight`` on the dangling hybrids.
-    atom_weight : ndarray (B, natom)  weight per cluster atom (averaged over a degenerate multiplet).
-    """
-
-    energies: np.ndarray
-    vectors: np.ndarray
-    index: np.ndarray
-    level: np.ndarray
-    s_weight: np.ndarray
-    p_weight: np.ndarray
-    d_weight: np.ndarray
-    shell1_weight: np.ndarray
-    dangling_weight: np.ndarray
-    atom_weight: np.ndarray
 
 
 def _mic_vectors(atoms, indices, origin):
@@ -127,13 +102,15 @@ class ClusterModel:
     modes: dict = field(default_factory=dict)
     notes: tuple = ()
     options: dict = field(default_factory=dict)
+    host_bands: object = None
+    swap_map: dict = field(default_factory=dict)
 
     # ------------------------------------------------------------------ construction
     @classmethod
     def around(cls, site, orbitals: str = "hybrid", scaling="harrison", *, term_values: str = "auto",
                onsite: dict | None = None, s_fraction: float = 0.25, level="auto", charge: int = 0,
                electrons: float | None = None, shells: int | None = None, pair_cutoff: float | None = None,
-               r_d: dict | None = None, **law_options) -> "ClusterModel":
+               r_d: dict | None = None, edges: str = "constant", **law_options) -> "ClusterModel":
         """Build the model around a vacancy site.
 
         Parameters
@@ -158,6 +135,12 @@ class ClusterModel:
             first-shell distance (full clusters: nearest-neighbour bonds).
         r_d : dict
             d-state radii (Å) per element for Harrison's d couplings.
+        edges : {"constant", "model"}
+            How levels are referred to the VBM. "constant": the fit's ``vbm`` parameter is the
+            model-scale VBM, the same for every case and knob. "model": the VBM of the pristine host
+            (``site.host``) from the same Slater–Koster parameters (:mod:`orbtool.tb.host_bands`), so a
+            swap or a strain moves the edge too; ``vbm`` is then a documented alignment offset between
+            the model's and the DFT's band edge, fitted once.
         """
         if orbitals not in _LMAX:
             raise ModelError(f"orbitals must be 'hybrid', 's', 'sp' or 'spd', got {orbitals!r}")
@@ -182,9 +165,15 @@ class ClusterModel:
             vec = np.array([a.vector for a in atoms], dtype=float)
         d1 = float(np.mean(np.linalg.norm(vec[: len(first)], axis=1)))
         law = make_law(scaling, d1, **law_options)
-        source = common_source(set(els) - set(onsite or {}), term_values)
+        if edges not in ("constant", "model"):
+            raise ModelError(f"edges must be 'constant' or 'model', got {edges!r}")
+        host = getattr(site, "host", None) if edges == "model" else None
+        if edges == "model" and host is None:
+            raise ModelError("edges='model' needs the pristine host structure (site.host)")
+        host_els = set(host.get_chemical_symbols()) if host is not None else set()
+        source = common_source((set(els) | host_els) - set(onsite or {}), term_values)
         table, notes = {}, [f"term values: {source}", f"couplings: {law.describe()}"]
-        for el in sorted(set(els)):
+        for el in sorted(set(els) | host_els):
             if onsite and el in onsite:
                 vals = tuple(float(x) for x in onsite[el]) + (np.nan,) * (3 - len(onsite[el]))
                 notes.append(f"on-site energies of {el} given by the user")
@@ -211,14 +200,21 @@ class ClusterModel:
         ops = np.asarray(getattr(site, "operations", np.eye(3)[None]), dtype=float).reshape(-1, 3, 3)
         cell = None if defect is None else np.array(defect.cell[:])
         pbc = False if defect is None else np.array(defect.pbc)
+        bands = None
+        if host is not None:
+            from .host_bands import HostBands
+
+            bands = HostBands.of(host, table, law)
+            notes.append(f"band edges: Γ-point sp model of the host ({len(host)} atoms) with the same parameters")
         return cls(orbitals=orbitals, law=law, site_position=position, indices=idx, elements=els, shell=shell,
                    vectors=vec, pairs=pairs, onsite=table, term_source=source,
                    s_fraction=float(s_fraction), level=level,
                    electrons=electrons if electrons is not None else _formal_electrons(els[: len(first)], charge),
                    point_group=str(getattr(site, "point_group", "C1")), operations=ops, cell=cell, pbc=pbc,
                    r_d=dict(r_d or {}), modes=_modes(site, vec[: len(first)]), notes=tuple(notes),
+                   host_bands=bands,
                    options={"onsite": dict(onsite or {}), "charge": charge, "electrons": electrons,
-                            "pair_cutoff": pair_cutoff, "shells": shells})
+                            "pair_cutoff": pair_cutoff, "shells": shells, "edges": edges})
 
     def with_site(self, site, charge: int | None = None) -> "ClusterModel":
         """The same settings (distance law with the same d0, term-value source, user on-site energies,
@@ -228,7 +224,7 @@ class ClusterModel:
                                    onsite=o.get("onsite") or None, s_fraction=self.s_fraction, level=self.level,
                                    charge=o.get("charge", 0) if charge is None else charge,
                                    electrons=o.get("electrons"), shells=o.get("shells"),
-                                   pair_cutoff=o.get("pair_cutoff"), r_d=self.r_d)
+                                   pair_cutoff=o.get("pair_cutoff"), r_d=self.r_d, edges=o.get("edges", "constant"))
 
     # ------------------------------------------------------------------ parameters
     @property
@@ -257,13 +253,16 @@ class ClusterModel:
 
     # ------------------------------------------------------------------ geometry
     def vectors_from(self, geometry) -> np.ndarray:
-        """Site→atom vectors (Å) of the cluster atoms in new Atoms (minimum image) or an array (natom,3)."""
+        """Site→atom vectors (Å) of the cluster atoms in new Atoms (minimum image) or an array (natom,3).
+
+        For Atoms the vacancy is carried over in fractional coordinates of the new cell and checked
+        (empty, first shell nearest); ModelError when the vacancy is not there (see ``_locate``)."""
         if geometry is None:
             return self.vectors
         if hasattr(geometry, "get_positions"):
-            if len(geometry) <= int(self.indices.max()):
-                raise ModelError(f"geometry has {len(geometry)} atoms but the cluster uses index {self.indices.max()}")
-            return _mic_vectors(geometry, self.indices, self.site_position)
+            from ._locate import site_in
+
+            return _mic_vectors(geometry, self.indices, site_in(self, geometry))
         v = np.asarray(geometry, dtype=float)
         if v.shape[-2:] != self.vectors.shape:
             raise ModelError(f"cluster vectors must have shape (..., {len(self.indices)}, 3), got {v.shape}")
@@ -271,6 +270,16 @@ class ClusterModel:
 
     def _prefactors(self, i, j):
         """Channel prefactors V(d0) (eV) for the pair (i, j): (lower-l on i, lower-l on j)."""
+        if self.law.kind == "overlap":
+            from .overlaps import wolfsberg_helmholz
+
+            if self.lmax > 1:
+                raise ModelError("the overlap (Wolfsberg–Helmholz) couplings cover s and p orbitals only")
+            d = float(np.linalg.norm(self.vectors[j] - self.vectors[i]))
+            ei, ej = (self.swap_map.get(self.elements[k], self.elements[k]) for k in (i, j))
+            fwd, rev = wolfsberg_helmholz(ei, ej, d, self.onsite[self.elements[i]], self.onsite[self.elements[j]])
+            fac = (d / self.law.d0) ** self.law.n  # the radial factor (d0/d)^n then gives V_WH at d_ij
+            return {c: v * fac for c, v in fwd.items()}, {c: v * fac for c, v in rev.items()}
         rd_i, rd_j = self.r_d.get(self.elements[i]), self.r_d.get(self.elements[j])
         fwd, rev = {}, {}
         for ch in _channels(self.lmax):
@@ -283,8 +292,6 @@ class ClusterModel:
 
     def compile(self, geometry=None):
         """Cache the geometry-dependent parts for fast evaluation (one or a batch of geometries)."""
-        from ._evaluate import CompiledCluster
-
         vec = self.vectors_from(geometry)
         lmax = 1 if self.orbitals == "hybrid" else self.lmax
         return CompiledCluster(self, Compiled(vec.reshape(-1, *self.vectors.shape), lmax, self.pairs,

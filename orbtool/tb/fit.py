@@ -28,6 +28,23 @@ from .targets import Target
 __all__ = ["fit", "FitResult", "FitParameter"]
 
 
+def knob_validation_lines() -> list:
+    """How well each knob was checked on real DFT, from ``orbtool/data/knob_validation.json`` (written by
+    the leave-one-host-out harness, tests/external/periodic/harness.py --write); [] when absent."""
+    import json
+    from importlib import resources
+
+    try:
+        rec = json.loads(resources.files("orbtool.data").joinpath("knob_validation.json").read_text("utf-8"))
+    except (FileNotFoundError, OSError, ValueError):
+        return []
+    sw, br = rec["swap"], rec["breathing"]
+    return [f"knob validation on real DFT ({rec['date']}, model: {rec['model']}): the cation knob was checked "
+            f"on {sw['n']} real swaps, RMS {sw['rms']:.2f} eV, sign right in {sw['sign_right']} of {sw['n']}; "
+            f"the breathing knob on {br['series']} series ({br['n']} leave-one-out predictions), RMS "
+            f"{br['rms']:.2f} eV. Predictions outside what was checked are extrapolations."]
+
+
 @dataclass(frozen=True)
 class FitParameter:
     """One entry of the fit's parameter vector (``name`` may be ``"<base>@<case>"`` when per-case)."""
@@ -278,6 +295,7 @@ class FitResult:
             lines.append(f"  warning: {', '.join(self.at_bounds)} stopped at a bound; "
                          "its uncertainty is not reliable")
         lines += [f"  note: {n}" for n in self.notes]
+        lines += [f"  {line}" for line in knob_validation_lines()]
         return "\n".join(lines)
 
     def to_dict(self) -> dict:
@@ -294,27 +312,41 @@ class FitResult:
     def cross_validate(self) -> dict:
         """Leave-one-case-out: refit without each case and predict its level (eV).
 
-        Returns {"errors": {case: predicted − observed}, "rms": float}; needs ≥ 2 cases.
+        Returns {"errors": {case: predicted − observed}, "rms": float, "skipped": {case: reason}};
+        needs ≥ 2 cases. A case that cannot be predicted (the remaining targets do not fix the free
+        parameters, or the refit yields no finite level) is listed in ``skipped`` with the reason,
+        never as a NaN error; FitError when no case can be predicted.
         """
         prob = self.problem
         cases = list(prob.by_case)
         if len(cases) < 2:
             raise FitError("cross-validation needs at least two cases")
         free_idx = np.array([self.names.index(n) for n in self.free])
-        errs = {}
+        errs, skipped = {}, {}
         for c in cases:
             keep = [t for t in prob.targets if t.case != c]
             sub = _Problem({k: m for k, m in prob.models.items() if k != c}, keep, prob.params, prob.use)
             sub.compiled = {k: v for k, v in prob.compiled.items() if k != c}
             idx = np.array([k for k in free_idx if not self.names[k].endswith(f"@{c}")])
-            if len(idx) > sub.residuals(self.values).shape[1]:
-                errs[c] = float("nan")
+            n_res = sub.residuals(self.values).shape[1]
+            if len(idx) > n_res:
+                skipped[c] = (f"without {c!r} only {n_res} target values remain for {len(idx)} free parameters "
+                              f"({', '.join(self.names[k] for k in idx)})")
                 continue
-            res = _run(sub, prob.params, self.values.copy(), idx, "linear", 1.0, True)
-            pred = prob.model_values(c, res.values[None])[0]
-            errs[c] = float(pred[0, 0] - prob.by_case[c][0].above_vbm)
-        vals = np.array([v for v in errs.values() if np.isfinite(v)])
-        return {"errors": errs, "rms": float(np.sqrt(np.mean(vals ** 2))) if len(vals) else float("nan")}
+            try:
+                res = _run(sub, prob.params, self.values.copy(), idx, "linear", 1.0, True)
+            except FitError as exc:
+                skipped[c] = f"the refit without {c!r} failed: {exc}"
+                continue
+            err = float(prob.model_values(c, res.values[None])[0][0, 0] - prob.by_case[c][0].above_vbm)
+            if np.isfinite(err):
+                errs[c] = err
+            else:
+                skipped[c] = f"the refit without {c!r} predicts no finite level"
+        if not errs:
+            raise FitError("cross-validation predicted no case: " + "; ".join(skipped.values()))
+        vals = np.array(list(errs.values()))
+        return {"errors": errs, "rms": float(np.sqrt(np.mean(vals ** 2))), "skipped": skipped}
 
     # ------------------------------------------------------------------ what-if (see whatif.py, inverse.py)
     def predict(self, geometry=None, swap=None, coupling_scale=1.0, onsite_shift=0.0, case=None, **kw):

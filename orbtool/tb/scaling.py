@@ -9,7 +9,10 @@ equal to 1 at the reference distance ``d0``) and ``law.prefactors(pairs) -> {cha
   +3.24, ppπ −0.81), the set paired with Harrison's 1980 term values. d couplings follow Harrison &
   Froyen, Phys. Rev. B 21, 3214 (1980): V_ldm = η_ldm ħ² r_d^{3/2}/(mₑ d^{7/2}), V_ddm = η_ddm ħ² r_d³/(mₑ d⁵).
 * a power law V(d0) (d0/d)^n with free n (Harrison's is n = 2);
-* an exponential V(d0) exp(−q (d − d0)).
+* an exponential V(d0) exp(−q (d − d0));
+* ``"overlap"``: element-aware Wolfsberg–Helmholz couplings from atomic valence-orbital overlaps
+  (:mod:`orbtool.tb.overlaps`) at each pair's reference distance, scaled as (d_ref/d)^n when the
+  geometry changes.
 
 Each may carry a smooth cutoff: factor 1 below ``r_cut − width`` falling as cos² to 0 at ``r_cut``.
 """
@@ -101,8 +104,8 @@ class DistanceLaw:
     v0: dict = field(default_factory=dict)
 
     def __post_init__(self):
-        if self.kind not in ("harrison", "power", "exp"):
-            raise ModelError(f"unknown scaling {self.kind!r}; expected 'harrison', 'power' or 'exp'")
+        if self.kind not in ("harrison", "power", "exp", "overlap"):
+            raise ModelError(f"unknown scaling {self.kind!r}; expected 'harrison', 'power', 'exp' or 'overlap'")
         if not self.d0 > 0:
             raise ModelError(f"reference distance d0 must be positive, got {self.d0}")
 
@@ -126,12 +129,17 @@ class DistanceLaw:
         """V at d0 (eV) for one channel: explicit ``v0`` first, else Harrison's universal value."""
         if channel in self.v0:
             return float(self.v0[channel])
+        if self.kind == "overlap":
+            raise ModelError("the overlap (Wolfsberg–Helmholz) law has no element-free prefactor: it is "
+                             "evaluated per atom pair (orbtool.tb.overlaps)")
         return float(harrison_coupling(channel, self.d0, self.eta_set, r_d_left, r_d_right))
 
     def describe(self) -> str:
         law = {"harrison": f"Harrison η ħ²/(m d²) ({self.eta_set} η set)",
                "power": f"power law (d0/d)^n, n={self.n:g}",
-               "exp": f"exponential exp(-q(d-d0)), q={self.q:g}/Å"}[self.kind]
+               "exp": f"exponential exp(-q(d-d0)), q={self.q:g}/Å",
+               "overlap": f"Wolfsberg–Helmholz K S (H_ii+H_jj)/2, ANO valence overlaps per element pair at the "
+                          f"reference distances, (d_ref/d)^n for geometry changes, n={self.n:g}"}[self.kind]
         cut = "" if self.r_cut is None else f", cutoff {self.r_cut:g} Å (taper {self.cut_width:g} Å)"
         return f"{law}, d0={self.d0:.3f} Å{cut}"
 

@@ -39,6 +39,11 @@ class Target:
         Free labels (cation, anion, ...).
     charge : int or None
         Charge state of the case (sets the formal electron count of the hybrid model); None = the model's.
+    degeneracy : int or None
+        Number of bands in the DFT state's degenerate multiplet (its identity: the hybrid model's
+        ``level="auto"`` follows the lowest cluster multiplet of this size; None = formal counting).
+    occupation : float or None
+        Electrons in the DFT multiplet (reported with the fit; no rule derives them from valences).
     """
 
     case: str
@@ -53,6 +58,8 @@ class Target:
     site: object = None
     labels: dict = field(default_factory=dict)
     charge: int | None = None
+    degeneracy: int | None = None
+    occupation: float | None = None
 
     def __post_init__(self):
         for name in ("above_vbm", "sigma_level", "sigma_s", "sigma_shell", "weight"):
@@ -70,11 +77,30 @@ class Target:
                 raise FitError(f"target {self.case!r}: {name} must be finite or None, got {v!r}")
 
 
-def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_character, labels, charge):
+def _first_shell_sp(state, site, multiplet=None):
+    """s/(s+p) of the state on the first-shell atoms (the dangling orbitals' character), summed over
+    its multiplet; None when the site or the per-atom, per-orbital weights are missing."""
+    first = [int(nb.index) for nb in (getattr(site, "first_shell", None) or ())]
+    members = multiplet or [state]
+    ao = [getattr(m, "atom_orbital", None) for m in members]
+    names = tuple(getattr(state, "orbital_names", ()) or ())
+    if not first or any(a is None for a in ao) or not names or max(first) >= np.asarray(ao[0]).shape[0]:
+        return None
+    w = sum(np.asarray(a, dtype=float)[first] for a in ao).sum(axis=0)
+    s_w = float(sum(w[k] for k, n in enumerate(names) if n == "s"))
+    p_w = float(sum(w[k] for k, n in enumerate(names) if n in ("p", "px", "py", "pz")))
+    return s_w / (s_w + p_w) if s_w + p_w > 0 else None
+
+
+def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_character, labels, charge,
+                   multiplet=None):
     above = float(state.above_vbm)
     s_frac = shell1 = None
     ow = getattr(state, "orbital_weights", None) or {}
-    if use_character and ("s" in ow and "p" in ow) and (ow["s"] + ow["p"]) > 0:
+    first_sp = _first_shell_sp(state, site, multiplet) if use_character else None
+    if first_sp is not None:
+        s_frac = first_sp
+    elif use_character and ("s" in ow and "p" in ow) and (ow["s"] + ow["p"]) > 0:
         s_frac = float(ow["s"] / (ow["s"] + ow["p"]))
     sf = getattr(state, "shell_fractions", None) or {}
     if use_character and sf.get(1) is not None and sf.get(2) is not None and (sf[1] + sf[2]) > 0:
@@ -87,7 +113,8 @@ def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_cha
         gap = above + float(state.below_cbm)
     return Target(case=name, above_vbm=above, sigma_level=sigma_level, s_fraction=s_frac, sigma_s=sigma_s,
                   shell1=shell1, sigma_shell=sigma_shell, gap=gap, site=site, labels=dict(labels),
-                  charge=charge)
+                  charge=charge, degeneracy=len(multiplet) if multiplet else None,
+                  occupation=float(sum(m.occupation for m in multiplet)) if multiplet else None)
 
 
 def targets_from_case(case, site=None, state=None, *, sigma_level: float = 0.05, sigma_s: float = 0.05,
@@ -115,12 +142,20 @@ def targets_from_case(case, site=None, state=None, *, sigma_level: float = 0.05,
     if state is None:
         from ..analysis import in_gap_states
 
-        states = in_gap_states(case, site=site)
-        if not states:
+        found = in_gap_states(case, site=site)
+        if not found:
             raise FitError(f"case {case.name!r}: no in-gap state found; pass state=... explicitly")
-        state = states[0]
+        state = found[0]
+    else:
+        found = None
     states = state if isinstance(state, (list, tuple)) else [state]
     labels = getattr(case, "labels", {}) or {}
     charge = getattr(case, "charge", None)
-    return [_state_targets(case.name, s, site, sigma_level, sigma_s, sigma_shell, use_character, labels, charge)
-            for s in states]
+    out = []
+    for s in states:
+        mult = None
+        if found is not None:  # the whole degenerate multiplet of the chosen band (same spin, within 1 meV)
+            mult = [o for o in found if o.spin == s.spin and abs(o.energy_aligned - s.energy_aligned) < 1e-3]
+        out.append(_state_targets(case.name, s, site, sigma_level, sigma_s, sigma_shell, use_character, labels,
+                                  charge, mult))
+    return out

@@ -1,7 +1,11 @@
 """What-if engine on a fitted cluster model: predictions with uncertainty bands and batched scans.
 
 Knobs (all relative to the fitted model of one case):
-* ``geometry`` — new ase.Atoms (cluster vectors by minimum image about the site) or vectors (natom, 3);
+* ``geometry`` — new ase.Atoms or vectors (natom, 3). For Atoms the fitted vacancy is located in the
+  given cell (carried over in fractional coordinates, then checked: the point must be empty and its
+  nearest atoms the model's first shell; the cluster atoms must be the model's elements or the
+  ``swap`` targets) and refused with a ModelError otherwise — a geometry with the vacancy elsewhere is
+  never measured around the fitted case's site;
 * ``swap`` — {"Sn": "Ge"}: on-site energies of the old element replaced by the new element's term
   values from the same table (the fitted shift of the old element is kept: it absorbs the table's
   systematic error); bond lengths are those of ``geometry`` (no relaxation is implied);
@@ -20,7 +24,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..errors import FitError, ModelError
+from ._locate import check_elements
 from .elements import term_values
+from .host_bands import model_vbm
 from .symmetry import class_columns, label_levels
 
 __all__ = ["Prediction", "predict", "scan"]
@@ -76,14 +82,21 @@ def _compiled(fit, case, geometry, swap):
         for old, new in swap.items():
             tv = term_values(new, model.term_source)
             onsite[old] = (tv.s, np.nan if tv.p is None else tv.p, np.nan if tv.d is None else tv.d)
-        model = replace(model, onsite=onsite)
+        model = replace(model, onsite=onsite, swap_map={**model.swap_map, **swap})
+    if model.host_bands is not None and (swap or hasattr(geometry, "get_positions")):
+        scale = 1.0
+        if hasattr(geometry, "get_positions") and model.cell is not None:
+            scale = float(abs(np.linalg.det(geometry.cell[:])) / abs(np.linalg.det(model.cell))) ** (1 / 3)
+        model = replace(model, host_bands=model.host_bands.swapped(dict(swap or {}), scale, model.onsite))
     if geometry is None:
         cache = fit._cache.setdefault("compiled", {})
         if key not in cache:
             cache[key] = model.compile()
             cache[key].swap = dict(swap or {})
         return cache[key]
-    cc = model.compile(geometry)
+    cc = model.compile(geometry)  # locates the vacancy in the geometry first (ModelError when not there)
+    if hasattr(geometry, "get_positions"):
+        check_elements(fit.problem.models[case], geometry, swap)
     cc.swap = dict(swap or {})
     return cc
 
@@ -99,6 +112,7 @@ def _params(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
     for old, new in (getattr(cc, "swap", None) or {}).items():
         if f"shift_{new}" in p and new not in cc.model.species:
             full[f"shift_{old}"] = p[f"shift_{new}"]
+    vbm = vbm + model_vbm(cc.model, full)  # the host's edge moves with swap/strain (edges="model")
     first_species = {cc.model.elements[i] for i in np.flatnonzero(cc.first)}
     for el in first_species:
         full[f"shift_{el}"] = full[f"shift_{el}"] + np.asarray(onsite_shift)
