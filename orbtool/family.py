@@ -1,9 +1,8 @@
 """Batch analysis of a chemical family and the family table.
 
-:func:`analyze_family` runs :func:`analyze_case` on every case — in worker
-processes (:mod:`concurrent.futures`) by default, or on a
-``dask.distributed`` cluster when a ``Client`` or scheduler address is given
-— and collects a :class:`FamilyAnalysis`: one row per case (geometry
+:func:`analyze_family` (defined in :mod:`orbtool.batch`, re-exported here)
+runs :func:`analyze_case` on every case — in worker processes by default, or
+on a ``dask.distributed`` cluster — and collects a :class:`FamilyAnalysis`: one row per case (geometry
 descriptors, the in-gap state and its character), errors per case without
 stopping the others, a shared tight-binding fit, transition levels, SRH
 factors and trends.
@@ -15,14 +14,13 @@ import csv
 import io
 import json
 import math
-import os
 import time
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
+from .batch import analyze_family  # the parallel machinery lives in orbtool.batch
 from .errors import OrbtoolError
 
 __all__ = ["CaseAnalysis", "FamilyAnalysis", "analyze_case", "analyze_family", "TOXIC_ELEMENTS", "clean_for_json"]
@@ -122,64 +120,6 @@ def analyze_case(case) -> CaseAnalysis:
         out.error = str(exc)
     out.seconds = time.perf_counter() - t0
     return out
-
-
-def _progress(total, enabled, desc):
-    if not enabled:
-        return None
-    from tqdm.auto import tqdm
-    return tqdm(total=total, desc=desc, unit="case", leave=False)
-
-
-def analyze_family(family, *, workers: int | None = None, client=None, progress: bool = True) -> "FamilyAnalysis":
-    """Analyse every case of ``family``.
-
-    Parameters
-    ----------
-    family : Family
-    workers : int, optional
-        Worker processes (default ``os.cpu_count()``; 1 = run in this process).
-    client : dask.distributed.Client or str, optional
-        Run on dask instead (a ``Client`` or a scheduler address).
-    progress : bool
-        Show a progress bar (terminal or notebook).
-    """
-    cases = list(family.cases)
-    results: dict[str, CaseAnalysis] = {}
-    bar = _progress(len(cases), progress, "analysing cases")
-    if client is not None:
-        from dask.distributed import Client
-        from dask.distributed import as_completed as dask_completed
-        own = isinstance(client, str)
-        cl = Client(client) if own else client
-        try:
-            futures = cl.map(analyze_case, cl.scatter(cases), pure=False)  # data sent once, not in the graph
-            for fut in dask_completed(futures):
-                r = fut.result()
-                results[r.name] = r
-                if bar:
-                    bar.update()
-        finally:
-            if own:
-                cl.close()
-    else:
-        n = workers or os.cpu_count() or 1
-        if n <= 1 or len(cases) <= 1:
-            for c in cases:
-                results[c.name] = analyze_case(c)
-                if bar:
-                    bar.update()
-        else:
-            with ProcessPoolExecutor(max_workers=min(n, len(cases))) as ex:
-                futs = [ex.submit(analyze_case, c) for c in cases]
-                for f in as_completed(futs):
-                    r = f.result()
-                    results[r.name] = r
-                    if bar:
-                        bar.update()
-    if bar:
-        bar.close()
-    return FamilyAnalysis(family, [results[c.name] for c in cases])
 
 
 def _num(x):

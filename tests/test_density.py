@@ -191,3 +191,29 @@ def test_voronoi_matches_scipy_periodic_kdtree(seed, natoms, shape):
     want = np.bincount(label, weights=values.ravel(), minlength=natoms)
     got = nearest_atom_sums(g.values, g.cell, g.origin, pos)
     assert np.allclose(got, want, rtol=1e-10, atol=1e-10)
+
+
+@pytest.mark.parametrize("cell", [np.diag([7.0, 7.5, 8.0]), SKEWED])
+def test_overlap_count_matches_ase_all_pair_distances(cell):
+    # reference: ASE's every-pair minimum-image distances (Atoms.get_all_distances(mic=True))
+    from orbtool.analysis.density import _overlapping_pairs
+    rng = np.random.default_rng(3)
+    atoms = Atoms("H30", positions=rng.random((30, 3)) @ cell, cell=cell, pbc=True)
+    d = atoms.get_all_distances(mic=True)
+    for rad in (0.4, 0.9, 1.4):
+        r = np.full(30, rad)
+        r[::7] = 0.0  # an empty sphere overlaps nothing
+        want = (r[:, None] + r[None, :] > d) & ~np.eye(30, dtype=bool) & (r[:, None] > 0) & (r[None, :] > 0)
+        assert _overlapping_pairs(atoms, r) == int(want.sum() // 2)
+
+
+def test_negative_density_still_refused_and_positive_one_accepted():
+    cell = np.diag([6.0, 6.0, 6.0])
+    rng = np.random.default_rng(4)
+    atoms = Atoms("H2", positions=[[1, 1, 1], [4, 4, 4]], cell=cell, pbc=True)
+    vals = rng.random((20, 20, 20))
+    ok = partition(Grid(vals, cell, atoms=atoms, unit="e/Å^3"))
+    # every point belongs to some nearest-atom cell: the charges add up to the rectangle-rule integral
+    assert ok.charges.sum() == pytest.approx(ok.total)
+    with pytest.raises(InputFormatError, match="negative part"):
+        partition(Grid(vals - 0.5, cell, atoms=atoms, unit="e/Å^3"))

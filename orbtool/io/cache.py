@@ -3,11 +3,17 @@
 Parsing a 100 MB text grid takes a second or more; the parsed values are
 kept as ``.npy`` files (plus a small ``.npz`` index holding cell, atoms and
 metadata) in a cache folder, and the next read memory-maps them. The key is
-a hash of the resolved path, size and modification time of the source plus
-the reader options, so an edited or replaced source
-is re-read. The folder is ``$ORBTOOL_CACHE_DIR`` when set, else the user's
-cache directory (``platformdirs.user_cache_dir("orbtool")``/grids); it is
-never next to the inputs unless the user points the variable there.
+a hash of the resolved path, device and inode, size, modification and
+status-change times (ns) of the source, a SHA-256 of its first and last
+64 KiB, and the reader options: a source edited in place, or replaced by
+another file of the same size and modification time, is re-read.
+
+Location (common practice, the XDG base-directory convention and its
+platform equivalents via ``platformdirs``): ``$ORBTOOL_CACHE_DIR`` when set,
+else ``platformdirs.user_cache_dir("orbtool")``/grids; never next to the
+inputs unless the user points the variable there. ``ORBTOOL_NO_CACHE=1``
+(any value but ``""``/``0``/``false``/``no``) switches the cache off: nothing
+is read from or written to it.
 """
 
 from __future__ import annotations
@@ -24,9 +30,15 @@ import numpy as np
 from ..errors import InputFormatError
 from .native import grid_arrays, grid_from_arrays
 
-__all__ = ["cache_dir", "cache_key", "load_cached", "store_cached", "clear_cache"]
+__all__ = ["cache_dir", "cache_enabled", "cache_key", "load_cached", "store_cached", "clear_cache"]
 
-_LAYOUT = 1  # bump when the stored layout or a reader's output changes
+_LAYOUT = 2  # bump when the stored layout, the key or a reader's output changes
+_EDGE = 65536  # bytes hashed at the head and at the tail of the source
+
+
+def cache_enabled() -> bool:
+    """False when ``$ORBTOOL_NO_CACHE`` is set to anything but ``""``, ``0``, ``false``, ``no``."""
+    return os.environ.get("ORBTOOL_NO_CACHE", "").strip().lower() in ("", "0", "false", "no")
 
 
 def cache_dir() -> Path:
@@ -39,16 +51,26 @@ def cache_dir() -> Path:
 
 
 def cache_key(path, options: dict) -> str:
-    """Hash of the resolved path, size, mtime and reader options."""
+    """Hash of the resolved path, device/inode, size, mtime/ctime (ns), the first and last
+    64 KiB of the content, and the reader options."""
     p = Path(path).resolve()
-    st = p.stat()
-    blob = json.dumps({"path": str(p), "size": st.st_size, "mtime": st.st_mtime_ns, "layout": _LAYOUT,
-                       "options": options}, sort_keys=True, default=str)
+    edges = hashlib.sha256()
+    with open(p, "rb") as fh:
+        st = os.fstat(fh.fileno())  # the file actually hashed, not a name that may change meanwhile
+        edges.update(fh.read(_EDGE))
+        if st.st_size > _EDGE:
+            fh.seek(max(_EDGE, st.st_size - _EDGE))
+            edges.update(fh.read(_EDGE))
+    blob = json.dumps({"path": str(p), "dev": st.st_dev, "ino": st.st_ino, "size": st.st_size,
+                       "mtime": st.st_mtime_ns, "ctime": st.st_ctime_ns, "edges": edges.hexdigest(),
+                       "layout": _LAYOUT, "options": options}, sort_keys=True, default=str)
     return hashlib.sha256(blob.encode()).hexdigest()[:32]
 
 
 def load_cached(path, options: dict):
     """The cached list of grids for ``path`` or None (missing or unreadable entries are ignored)."""
+    if not cache_enabled():
+        return None
     try:
         f = cache_dir() / (cache_key(path, options) + ".npz")
         if not f.is_file():
@@ -66,6 +88,8 @@ def load_cached(path, options: dict):
 
 def store_cached(path, options: dict, grids) -> Path | None:
     """Store ``grids`` for ``path``; failures to write are silent (the cache is an optimisation)."""
+    if not cache_enabled():
+        return None
     try:
         d = cache_dir()
         d.mkdir(parents=True, exist_ok=True)
