@@ -139,7 +139,7 @@ def _with_reference(edges: BandEdges, ref: dict, tolerance: float) -> BandEdges:
                      provenance=tuple(notes), sampled=(edges.vbm, edges.cbm), warnings=tuple(warns))
 
 
-def band_localisation(atom_weights, first_shell, *, factor: float = 3.0) -> dict:
+def band_localisation(atom_weights, first_shell, *, factor: float = 2.0) -> dict:
     """Is a state localised at the vacancy rather than a (folded) host band?
 
     Criterion: its share on the first neighbour shell is at least ``factor`` times the share a
@@ -147,7 +147,7 @@ def band_localisation(atom_weights, first_shell, *, factor: float = 3.0) -> dict
     participation ratio IPR = Σ_a w_a² / (Σ_a w_a)² over the atoms and the participation number
     1/IPR, the number of atoms effectively carrying the state (R. J. Bell & P. Dean, Discuss.
     Faraday Soc. 50, 55 (1970) [citation from memory]). Comparing a state's weight near the defect
-    with a host state's is common practice; the factor 3 is a rule of thumb.
+    with a host state's is common practice; the factor 2 is a rule of thumb.
 
     Parameters
     ----------
