@@ -119,3 +119,19 @@ def test_localisation_of_the_engine_state():
     shares = [band_localisation(p.character(b, 0).sum(axis=1), first) for b in deep[-12:]]
     assert not any(s["localised"] for s in shares)
     assert band_localisation(np.zeros(len(case.defect)), first)["localised"] is None
+
+
+def test_only_localised_states_are_defect_levels():
+    from orbtool.analysis import in_gap_states
+    from orbtool.analysis.edges import BandEdges, localised_states
+    case = orbtool.load_case(DATA / "vac", host=DATA / "host")
+    site = locate_vacancy(case.host, case.defect)
+    rec = _engine("vac")
+    # edges opened wide on purpose so that the top valence bands (F 2p, below −10 eV) count as "in the gap"
+    wide = BandEdges(vbm=-10.9, cbm=-4.3, gap=6.6, by_spin={0: (-10.9, -4.3)}, method="test: widened")
+    states = in_gap_states(case, site, edges=wide, alignment=0.0)
+    kept, dropped = localised_states(states, site)
+    # the engine's F-centre state (its own index and spin) is the one defect level
+    assert [(s.band, s.spin) for s, _ in kept] == [(rec["state_index"], rec["state_spin"])]
+    assert len(dropped) >= 6 and all(s.energy < -10 for s, _ in dropped)
+    assert all("first-shell share" in v["criterion"] for _, v in dropped)

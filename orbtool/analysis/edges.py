@@ -17,7 +17,7 @@ from ..errors import InputFormatError, OrbtoolError
 from ..spectra import BandProjections, ProjectedDOS
 from ._records import Record
 
-__all__ = ["NoGapError", "BandEdges", "band_edges", "band_localisation"]
+__all__ = ["NoGapError", "BandEdges", "band_edges", "band_localisation", "localised_states"]
 
 class NoGapError(OrbtoolError, ValueError):
     """The host has no band gap (a metal, or the data cannot show one), so no
@@ -292,3 +292,23 @@ def band_edges(data, *, threshold: float | None = None, fermi: float | None = No
         return _with_reference(edges, reference, gap_tolerance)
     raise InputFormatError(None, None, f"band edges need BandProjections or ProjectedDOS, got {type(data).__name__}",
                            field="data")
+
+
+def localised_states(states, site, *, factor: float = 2.0) -> tuple[list, list]:
+    """Split in-gap states into defect levels (localised at the vacancy) and the rest.
+
+    Each state's ``atom_weights`` are judged by :func:`band_localisation` against the site's first
+    shell. States without atom weights (e.g. from a calculator offering no projections) cannot be
+    judged and are kept, with that said in the returned notes.
+
+    Returns
+    -------
+    (kept, dropped) : lists of (state, verdict dict); the verdict's ``criterion`` says why.
+    """
+    shells = getattr(site, "shells", None)
+    first = [int(nb.index) for nb in (shells[0] if shells else getattr(site, "first_shell", ()))]
+    kept, dropped = [], []
+    for st in states:
+        verdict = band_localisation(st.atom_weights, first, factor=factor)
+        (dropped if verdict["localised"] is False else kept).append((st, verdict))
+    return kept, dropped
