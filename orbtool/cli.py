@@ -89,8 +89,8 @@ def _inspect(args) -> int:
         a = orbtool.read_structure(path)
         info.update(atoms=len(a), formula=a.get_chemical_formula(), volume_A3=float(a.get_volume()))
         calc = getattr(a, "calc", None)
-        if calc is not None and hasattr(calc, "get_eigenvalues"):
-            from .io.calculator import projections_from_calculator
+        from .io.calculator import offers_eigenvalues, projections_from_calculator
+        if calc is not None and offers_eigenvalues(calc):
             try:
                 b = projections_from_calculator(calc, a, source=str(path))
                 info.update(engine_output=True, kpoints=b.nkpoints, bands=b.nbands, nspin=b.nspin, fermi_eV=b.fermi,

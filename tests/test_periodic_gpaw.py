@@ -137,3 +137,20 @@ def test_true_band_edges_and_the_gamma_gap(host, vac):
     assert (e.vbm, e.cbm) == (pytest.approx(ref["vbm"]), pytest.approx(ref["cbm"]))
     sampled_gap = e.sampled[1] - e.sampled[0]
     assert bool([w for w in e.warnings if "true gap" in w]) == (abs(sampled_gap - ref["gap"]) > 0.1)
+
+
+@pytest.mark.parametrize("host,vac", _pairs())
+def test_inspect_and_load_the_engine_log_alone(host, vac, tmp_path, capsys):
+    from orbtool.cli import main
+    assert main(["inspect", str(vac / "gpaw.txt.gz"), "--json"]) == 0
+    info = json.loads(capsys.readouterr().out)
+    rec = _engine(vac)
+    assert info["kind"] == "structure" and info["format"] == "ase:gpaw-out" and info["atoms"] == rec["natoms"]
+    assert info["engine_output"] and info["bands"] == rec["nbands_engine"]
+    assert info["fermi_eV"] == pytest.approx(rec["fermi"], abs=1e-4)
+    # the log alone is a case: structure, band energies and occupations from its calculator
+    case = orbtool.load_case(vac / "gpaw.txt.gz", host=host / "structure.extxyz")
+    assert case.projections.nbands == rec["nbands_engine"] and case.projections.orbitals == ()
+    assert case.total_energy == pytest.approx(rec["total_energy"], abs=1e-4)
+    # a structure file's energy-only calculator (extxyz) is no source of eigenvalues
+    assert case.host_projections is None

@@ -48,6 +48,11 @@ def _ase_format(f: Path) -> str | None:
     return None if fmt in _NOT_STRUCTURES else fmt
 
 
+def _has_eigenvalues(calc) -> bool:
+    from .calculator import offers_eigenvalues
+    return offers_eigenvalues(calc)
+
+
 def _npz_kind(f: Path) -> str | None:
     import zipfile
     try:
@@ -160,7 +165,7 @@ def scan_run(folder, *, grids: bool = True, units: str = "auto") -> RunData:
         run.structure = atoms
         run.notes.append(f"structure from {f.name}" + (" (relaxed)" if "CONTCAR" in f.name.upper() else ""))
         calc = getattr(atoms, "calc", None)
-        if calc is not None and hasattr(calc, "get_eigenvalues"):
+        if calc is not None and _has_eigenvalues(calc):
             run.calculator = calc
             run.notes.append(f"{f.name} also carries the engine's eigenvalues ({type(calc).__name__})")
         break
@@ -254,7 +259,7 @@ def _run_of(obj, grids, units, who):
         run = RunData(Path("."), structure=obj)
         calc = getattr(obj, "calc", None)
         run.notes.append("structure given as Atoms")
-        if calc is not None and hasattr(calc, "get_eigenvalues"):
+        if calc is not None and _has_eigenvalues(calc):
             run.calculator = calc
             run.notes.append(f"the Atoms carry a {type(calc).__name__} calculator")
         return run

@@ -30,7 +30,7 @@ from ..errors import InputFormatError
 from ..grid import Grid
 from ..spectra import BandProjections
 
-__all__ = ["case_from_calculator", "projections_from_calculator", "grids_from_calculator"]
+__all__ = ["case_from_calculator", "projections_from_calculator", "grids_from_calculator", "offers_eigenvalues"]
 
 
 def _atoms_and_calc(obj, who):
@@ -58,6 +58,13 @@ def _call(calc, name, *args, **kw):
         return fn(*args, **kw)
     except Exception:  # calculators raise NotImplementedError, PropertyNotImplementedError, ... when absent
         return None
+
+
+def offers_eigenvalues(calc) -> bool:
+    """True if ``calc`` answers ``get_eigenvalues(kpt=0, spin=0)`` (a structure file's energy-only
+    calculator does not)."""
+    e = _call(calc, "get_eigenvalues", kpt=0, spin=0)
+    return e is not None and np.size(e) > 0
 
 
 def projections_from_calculator(calc, atoms=None, *, source: str | None = None) -> BandProjections:
@@ -158,7 +165,7 @@ def _side(obj, who, grids, units, state_bands):
             run.notes.append("band energies and occupations from the engine output's calculator")
         return run.structure, proj, run.grids, run.energy, run.notes, run.edges, run.pdos
     atoms, calc = _atoms_and_calc(obj, who)
-    if calc is None:
+    if calc is None or not offers_eigenvalues(calc):
         return atoms, None, {}, None, ["structure given as Atoms (no calculator attached)"], None, None
     name = type(calc).__name__
     proj = projections_from_calculator(calc, atoms, source=f"<{name} ({who})>")
