@@ -121,11 +121,19 @@ def _edges_from_bands(proj: BandProjections, fermi, occupied, min_gap) -> BandEd
 def _with_reference(edges: BandEdges, ref: dict, tolerance: float) -> BandEdges:
     """The true edges of ``ref`` (a band-structure file or the user), with the sampled ones kept in
     ``sampled`` and a warning when the sampled gap differs by more than ``tolerance`` (eV)."""
+    warns, notes = [], list(edges.provenance) + [f"edges of the data themselves: {edges.method}"]
     if ref.get("gap_only"):
         vbm, cbm = edges.vbm, edges.vbm + float(ref["gap"])
     else:
         vbm, cbm = float(ref["vbm"]), float(ref["cbm"])
-    warns, notes = [], list(edges.provenance) + [f"edges of the data themselves: {edges.method}"]
+        if "gamma_vbm" in ref:
+            # Γ is sampled by both calculations: its valence-band top fixes the offset between their
+            # energy scales (their average potentials differ through the k sampling of the density)
+            delta = edges.vbm - float(ref["gamma_vbm"])
+            vbm, cbm = vbm + delta, cbm + delta
+            notes.append(f"band-structure edges moved by {delta:+.4f} eV onto the data's scale (the Γ valence-band "
+                         "top, sampled by both, made to coincide)")
+            ref = {**ref, "vbm": vbm, "cbm": cbm}
     gap_s, gap_t = edges.gap, cbm - vbm
     if abs(gap_s - gap_t) > tolerance:
         warns.append(f"the supercell's own gap ({gap_s:.3f} eV at its k-points) differs from the true gap "
