@@ -20,6 +20,8 @@ import pytest
 import orbtool
 from orbtool.analysis import band_edges, locate_vacancy
 
+pytestmark = pytest.mark.slow        # ~1 min per host/vacancy pair on a busy 2-core machine
+
 PERIODIC = Path(__file__).parent / "external" / "periodic" / "data"
 HOSTS = {"ZnS": "S", "CdS": "S", "NaCl": "Cl", "KCl": "Cl", "CsCl": "Cl", "AlP": "P", "GaP": "P", "CaO": "O",
          "SrO": "O"}
