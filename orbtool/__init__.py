@@ -35,6 +35,7 @@ _LAZY = {
     "write_projections": "orbtool.io",
     "load_case": "orbtool.io",
     "load_family": "orbtool.io",
+    "case_from_calculator": "orbtool.io.calculator",
     "read_energy": "orbtool.io",
     "save_session": "orbtool.session",
     "analyze_family": "orbtool.family",

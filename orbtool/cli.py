@@ -18,52 +18,96 @@ from .errors import OrbtoolError
 __all__ = ["main", "build_parser"]
 
 
-def _inspect(args) -> int:
+def _what(path: Path):
+    """(kind, format name) of a file, trying orbtool's registry and then ASE."""
+    from .io.assemble import _classify
     from .io.registry import guess_format
+    if path.is_dir():
+        for kind in ("pdos",):
+            try:
+                return kind, guess_format(path, kind).name
+            except OrbtoolError:
+                pass
+        return None
+    label = _classify(path)
+    if label is None:
+        return None
+    if label.startswith("npz:"):
+        return label[4:], "npz"
+    if label.startswith("ase:"):
+        return "structure", label
+    if label == "band-edges":
+        return "band-edges", "band-structure JSON"
+    if label in ("poscar", "vasprun"):
+        return "structure", label
+    for kind in ("grid", "projections", "pdos", "energy"):
+        try:
+            return kind, guess_format(path, kind).name
+        except OrbtoolError:
+            continue
+    return None
+
+
+_WHAT = {"grid": "volumetric data (grid)", "projections": "band-resolved projections (energies, occupations, "
+         "weights per atom and orbital)", "pdos": "projected density of states", "structure": "a structure",
+         "energy": "a total energy", "band-edges": "the host's true band edges (band-structure file)"}
+
+
+def _inspect(args) -> int:
     path = Path(args.file)
     if not path.exists():
         raise OrbtoolError(f"{path}: no such file or folder")
     info: dict = {"file": str(path)}
-    found = None
-    for kind in ("grid", "projections", "pdos", "structure", "energy"):
-        try:
-            fmt = guess_format(path, kind)
-        except OrbtoolError:
-            continue
-        found = (kind, fmt)
-        break
+    found = _what(path)
     if found is None:
         raise OrbtoolError(f"{path}: not a file format orbtool recognises "
-                           "(grids: cube, XSF, CHGCAR family; PDOS: DOSCAR, projwfc-style, per-kind pdos, orbtool; "
-                           "projections: PROCAR, orbtool; structures: anything ASE reads)")
+                           "(grids: cube, XSF, CHGCAR family, NPZ; PDOS: DOSCAR, projwfc-style, per-kind pdos, "
+                           "orbtool text, NPZ; projections: PROCAR, orbtool text, NPZ; structures: anything ASE "
+                           "reads; band edges: band-structure JSON)")
     kind, fmt = found
-    info.update(kind=kind, format=fmt.name)
+    info.update(kind=kind, format=fmt, holds=_WHAT[kind])
     import orbtool
     if kind == "grid":
-        grids = orbtool.read_grids(path, format=fmt.name)
+        grids = orbtool.read_grids(path, format=None if fmt == "npz" else fmt, units=args.units)
         info["grids"] = [{"name": g.name, "shape": list(g.shape), "unit": g.unit, "volume_A3": g.volume,
-                          "integral": g.integrate(), "min": float(g.values.min()), "max": float(g.values.max()),
+                          "integral": g.integrate(square=g.unit == "Å^-3/2"), "min": float(g.values.min()),
+                          "max": float(g.values.max()),
+                          "quantity": g.meta.get("quantity"), "unit_convention": g.meta.get("unit_convention"),
+                          "unit_convention_reason": g.meta.get("unit_convention_reason"),
                           "atoms": None if g.atoms is None else g.atoms.get_chemical_formula()} for g in grids]
     elif kind == "pdos":
-        p = orbtool.read_pdos(path, format=fmt.name)
+        p = orbtool.read_pdos(path, format=None if fmt == "npz" else fmt)
         info.update(energy_range_eV=[float(p.energies[0]), float(p.energies[-1])], points=int(p.energies.size),
                     nspin=p.nspin, channels=len(p.channels), resolution=p.orbital_resolution(),
                     atoms=len(p.atom_indices), fermi_eV=p.fermi)
     elif kind == "projections":
-        b = orbtool.read_projections(path, format=fmt.name)
+        b = orbtool.read_projections(path, format=None if fmt == "npz" else fmt)
         info.update(nspin=b.nspin, kpoints=b.nkpoints, bands=b.nbands, atoms=b.natoms, orbitals=list(b.orbitals),
                     has_occupations=b.occupations is not None, fermi_eV=b.fermi,
                     energy_range_eV=[float(b.energies.min()), float(b.energies.max())])
     elif kind == "structure":
         a = orbtool.read_structure(path)
         info.update(atoms=len(a), formula=a.get_chemical_formula(), volume_A3=float(a.get_volume()))
+        calc = getattr(a, "calc", None)
+        from .io.calculator import offers_eigenvalues, projections_from_calculator
+        if calc is not None and offers_eigenvalues(calc):
+            try:
+                b = projections_from_calculator(calc, a, source=str(path))
+                info.update(engine_output=True, kpoints=b.nkpoints, bands=b.nbands, nspin=b.nspin, fermi_eV=b.fermi,
+                            has_occupations=b.occupations is not None)
+            except OrbtoolError:
+                pass
+    elif kind == "band-edges":
+        from .io.edges import read_band_edges
+        e = read_band_edges(path)
+        info.update({k: e[k] for k in ("vbm", "cbm", "gap", "gamma_vbm", "gamma_cbm") if k in e})
     else:
         from .io import read_energy
         info.update(total_energy_eV=read_energy(path))
     if args.json:
         print(json.dumps(info, indent=1))
     else:
-        print(f"{info.pop('file')}: {info.pop('kind')} data, format {info.pop('format')}")
+        print(f"{info.pop('file')}: {info.pop('kind')} data, format {info.pop('format')} — {info.pop('holds')}")
         for k, v in info.items():
             if k == "grids":
                 for g in v:
@@ -71,6 +115,8 @@ def _inspect(args) -> int:
                     print(f"  grid {g['name'] or '(unnamed)'}: {shape} points, unit {g['unit']}, "
                           f"cell {g['volume_A3']:.3f} Å^3, integral {g['integral']:.6g}, "
                           f"range [{g['min']:.4g}, {g['max']:.4g}]" + (f", atoms {g['atoms']}" if g["atoms"] else ""))
+                    if g.get("unit_convention_reason"):
+                        print(f"    units: {g['unit_convention']} — {g['unit_convention_reason']}")
             else:
                 print(f"  {k:<16} {v}")
     return 0
@@ -112,6 +158,9 @@ def build_parser() -> argparse.ArgumentParser:
     s = sub.add_parser("inspect", help="say what a grid / DOS / projection / structure file holds")
     s.add_argument("file", help="file (or folder for per-atom PDOS files)")
     s.add_argument("--json", action="store_true", help="print machine-readable JSON")
+    s.add_argument("--units", choices=("auto", "bohr", "angstrom"), default="auto",
+                   help="value convention of cube files: atomic units (the format's), per-Å³ values (ASE's "
+                        "writer), or decide from the data (default)")
     s.set_defaults(func=_inspect)
 
     def common(sp):

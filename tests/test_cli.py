@@ -23,17 +23,22 @@ def _cube(tmp_path):
 
 def test_inspect_cube_json_matches_ase(tmp_path, capsys):
     path, atoms, data = _cube(tmp_path)
-    assert main(["inspect", str(path), "--json"]) == 0
+    assert main(["inspect", str(path), "--json", "--units", "bohr"]) == 0
     info = json.loads(capsys.readouterr().out)
     assert info["kind"] == "grid" and info["format"] == "cube"
     g = info["grids"][0]
     assert g["shape"] == [6, 7, 8]
-    # reference: ASE's cell volume and the values ASE wrote (cube stores 5 significant digits); cube values
-    # are in atomic units (e/bohr³, Gaussian cube specification), orbtool reports e/Å³: divide by bohr³ (ase.units)
+    # reference: ASE's cell volume and the values ASE wrote (cube stores 5 significant digits); read in the
+    # cube format's atomic units (e/bohr³, Gaussian cube specification), orbtool reports e/Å³: divide by bohr³
     from ase.units import Bohr
     assert g["volume_A3"] == pytest.approx(atoms.get_volume(), rel=1e-6)
     assert g["max"] == pytest.approx(data.max() / Bohr**3, rel=1e-4)
     assert g["atoms"] == atoms.get_chemical_formula()
+    assert g["unit_convention"] == "bohr"
+    # with ASE's convention (ase.io.write stores the array as given) the values are the array itself
+    assert main(["inspect", str(path), "--json", "--units", "angstrom"]) == 0
+    g = json.loads(capsys.readouterr().out)["grids"][0]
+    assert g["max"] == pytest.approx(data.max(), rel=1e-4) and g["unit_convention"] == "angstrom"
 
 
 def test_inspect_text_output(tmp_path, capsys):

@@ -47,14 +47,20 @@ def test_cube_written_by_ase(tmp_path, signed):
     np.testing.assert_allclose(g.values, ref, rtol=1e-10, atol=0)
     _atoms_equal(g.atoms, ref_atoms)
     np.testing.assert_allclose(g.cell, ref_atoms.cell.array, rtol=1e-10, atol=1e-10)
-    auto = orbtool.io.read_grid(f, cache=False)
+    au = orbtool.io.read_grid(f, cache=False, units="bohr")
     # atomic-unit conversion at the edge: e/Bohr^3 -> e/Å^3 or Bohr^-3/2 -> Å^-3/2 (ase.units.Bohr)
     if signed:
-        assert auto.unit == "Å^-3/2"
-        np.testing.assert_allclose(auto.values, ref * BOHR**-1.5, rtol=1e-12)
+        assert au.unit == "Å^-3/2"
+        np.testing.assert_allclose(au.values, ref * BOHR**-1.5, rtol=1e-12)
     else:
-        assert auto.unit == "e/Å^3"
-        np.testing.assert_allclose(auto.values, ref * BOHR**-3, rtol=1e-12)
+        assert au.unit == "e/Å^3"
+        np.testing.assert_allclose(au.values, ref * BOHR**-3, rtol=1e-12)
+    assert au.meta["unit_convention"] == "bohr" and "given by the caller" in au.meta["unit_convention_reason"]
+    # "auto": ASE's ase.io.write stores the array unchanged (ASE's cube writer source: data.tofile, no
+    # scaling); random numbers are no physical field, whichever evidence decides, the reason is recorded
+    auto = orbtool.io.read_grid(f, cache=False)
+    assert auto.meta["unit_convention"] == "angstrom" and auto.meta["unit_convention_reason"]
+    np.testing.assert_allclose(auto.values, ref, rtol=1e-12)
 
 
 def test_cube_origin_and_molecule(tmp_path):
@@ -196,7 +202,7 @@ def test_cache_hit_and_invalidation(tmp_path):
     g2 = orbtool.io.read_grid(f)
     np.testing.assert_array_equal(g1.values, g2.values)
     write(f, atoms, data=np.full((4, 4, 4), 2.0))  # changed source -> re-read
-    g3 = orbtool.io.read_grid(f)
+    g3 = orbtool.io.read_grid(f, units="bohr")
     assert float(g3.values.mean()) == pytest.approx(2.0 * BOHR**-3, rel=1e-12)
     orbtool.io.read_grid(f, cache=False)
     assert len(list((tmp_path / "cache").glob("*.npz"))) == 2  # one per (source state, options) key

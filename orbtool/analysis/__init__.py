@@ -17,6 +17,7 @@ _LAZY = {
     "symmetry_adapted_modes": "distortions",
     # states
     "band_edges": "states", "in_gap_states": "states", "BandEdges": "states", "DefectState": "states",
+    "band_localisation": "edges",
     "align": "alignment", "Alignment": "alignment",
     # density
     "partition_spheres": "density", "partition_voronoi": "density", "localisation": "density",

@@ -15,7 +15,7 @@ from .registry import get_format, guess_format, reader_of, writer_of
 __all__ = ["read_grid", "read_grids", "read_pdos", "read_projections", "write_grid", "write_pdos",
            "write_projections"]
 
-_QUANTITIES = ("auto", "density", "orbital", "potential", "raw")
+_QUANTITIES = ("auto", "density", "state", "orbital", "potential", "raw")
 
 
 def _format(path, format, kind):
@@ -48,7 +48,7 @@ def _note_format(obj, p, fmt, given):
 
 
 def read_grids(path, format: str | None = None, *, cache: bool = True, quantity: str = "auto",
-               progress: bool = True) -> list[Grid]:
+               progress: bool = True, units: str = "auto", expected=None) -> list[Grid]:
     """Every grid in a volumetric file (total and spin density of a spin-polarised
     charge-density file; each orbital of a multi-orbital cube).
 
@@ -61,12 +61,21 @@ def read_grids(path, format: str | None = None, *, cache: bool = True, quantity:
         Registry name (``"cube"``, ``"xsf"``, ``"chgcar"``, ``"npz"``); guessed from content if omitted.
     cache : bool
         Use and fill the binary cache (see :mod:`orbtool.io.cache`); text formats only.
-    quantity : {"auto", "density", "orbital", "potential", "raw"}
+    quantity : {"auto", "density", "state", "orbital", "potential", "raw"}
         What the values are, which fixes the unit conversion: densities become e/Å³, orbitals
-        Å^-3/2, potentials eV; ``"raw"`` keeps the file's numbers (unit ``"arb"``). ``"auto"``
-        decides from the format and file name and records the guess in ``Grid.meta``.
+        Å^-3/2, potentials eV; ``"state"`` is the density of one state or multiplet (1/Å³);
+        ``"raw"`` keeps the file's numbers (unit ``"arb"``). ``"auto"`` decides from the format
+        and file name and records the guess in ``Grid.meta``.
     progress : bool
         Show a progress bar (terminal or notebook) when a read takes longer than about a second.
+    units : {"auto", "bohr", "angstrom"}
+        Cube files only: whether the values are in the format's atomic units or already Å-based
+        (ASE's writer). ``"auto"`` decides from the integral (a total density integrates to an
+        electron count of the atoms, a state's density to its number of bands) and falls back on
+        the writer; ``Grid.meta["unit_convention"]`` and ``["unit_convention_reason"]`` say which
+        and why. See :mod:`orbtool.io.conventions`.
+    expected : float or sequence, optional
+        Cube files, ``units="auto"``: what the integral must be, when the caller knows it.
 
     Returns
     -------
@@ -79,25 +88,36 @@ def read_grids(path, format: str | None = None, *, cache: bool = True, quantity:
     if fmt.name == "npz":
         return [_note_format(reader_of(fmt)(p, kind="grid"), p, fmt, format)]
     options = {"format": fmt.name, "quantity": quantity}
+    kwargs = {"quantity": quantity, "progress": progress}
+    if fmt.name == "cube":
+        options.update(units=units, expected=None if expected is None else list(map(float, _seq(expected))))
+        kwargs.update(units=units, expected=expected)
+    elif quantity == "state":
+        kwargs["quantity"] = "density"
     if cache:
         hit = _cache.load_cached(p, options)
         if hit is not None:
             return [_note_format(g, p, fmt, format) for g in hit]
-    grids = reader_of(fmt)(p, quantity=quantity, progress=progress)
+    grids = reader_of(fmt)(p, **kwargs)
     if cache:
         _cache.store_cached(p, options, grids)
     return [_note_format(g, p, fmt, format) for g in grids]
 
 
+def _seq(x):
+    return [x] if isinstance(x, (int, float)) else list(x)
+
+
 def read_grid(path, format: str | None = None, *, cache: bool = True, index: int | None = None,
-              quantity: str = "auto", progress: bool = True) -> Grid:
+              quantity: str = "auto", progress: bool = True, units: str = "auto", expected=None) -> Grid:
     """One grid from a volumetric file (see :func:`read_grids` for formats and options).
 
     ``index`` picks a grid of a multi-grid file (0 = total density of a charge-density
     file, 1 = its spin density; n = n-th orbital of a multi-orbital cube); by default the
     first grid is returned.
     """
-    grids = read_grids(path, format, cache=cache, quantity=quantity, progress=progress)
+    grids = read_grids(path, format, cache=cache, quantity=quantity, progress=progress, units=units,
+                       expected=expected)
     i = 0 if index is None else index
     if not -len(grids) <= i < len(grids):
         raise InputFormatError(path, None, f"grid index {index} out of range: the file holds {len(grids)} grid(s)",

@@ -54,16 +54,25 @@ def _guess_quantity(comments: str, is_mo: bool) -> tuple[str, str]:
     return "", ""
 
 
-def read_cube(path, quantity: str = "auto", progress: bool = True) -> list[Grid]:
+def read_cube(path, quantity: str = "auto", progress: bool = True, units: str = "auto",
+              expected=None) -> list[Grid]:
     """Read every grid of a Gaussian cube file.
 
     Parameters
     ----------
     path : file (optionally compressed)
-    quantity : {"auto", "density", "orbital", "potential", "raw"}
+    quantity : {"auto", "density", "state", "orbital", "potential", "raw"}
         ``"auto"`` reads the comment lines and the atom-count sign, and otherwise takes a field
         with significant negative values as an orbital and a non-negative one as a density.
+        ``"state"`` is the density of one state or multiplet (Σ|ψ|², unit 1/Å³).
     progress : show a progress bar on slow reads
+    units : {"auto", "bohr", "angstrom"}
+        Convention of the values of a cube with a bohr header: ``"bohr"`` the format's atomic
+        units (e/bohr³, bohr^-3/2, hartree/e), ``"angstrom"`` values already per Å³ / Å^-3/2 /
+        eV (what ``ase.io.write`` stores), ``"auto"`` decides from what the data must satisfy
+        (:mod:`orbtool.io.conventions`). The choice and its reason go to ``Grid.meta``.
+    expected : float or sequence, optional
+        What the integral must be (electrons or bands), when known, for ``units="auto"``.
 
     Returns
     -------
@@ -152,10 +161,16 @@ def read_cube(path, quantity: str = "auto", progress: bool = True) -> list[Grid]
                       ("density", "values are non-negative"))
     else:
         q, why = quantity, "given by the caller"
-    unit, factor = _CONVERT[q]
+    unit, factor = _CONVERT["density" if q == "state" else q]
+    conv = {"convention": "raw", "reason": "values kept as written (quantity='raw')"}
     if not signs[0] and q != "raw":
         factor = 1.0  # Å axes: values taken as already Å-based (no atomic-unit conversion)
         why += "; Å axes so values taken as Å-based"
+        conv = {"convention": "angstrom", "reason": "Å axes (negative grid counts): values taken as Å-based"}
+    elif q != "raw":
+        conv = _unit_convention(data, steps, q, atoms, comments, units, expected, path)
+        if conv["convention"] == "angstrom":
+            factor = 1.0
     names = labels or (["value"] if nper == 1 else [f"value {i + 1}" for i in range(nper)])
     if labels and nval > 1:
         names = [f"{lab} value {j + 1}" for lab in labels for j in range(nval)]
@@ -167,13 +182,39 @@ def read_cube(path, quantity: str = "auto", progress: bool = True) -> list[Grid]
         elif nper > 1:
             vals = np.ascontiguousarray(vals)
         meta = {"format": "cube", "quantity": q, "quantity_reason": why, "comments": comments,
-                "length_unit": "bohr" if signs[0] else "angstrom", "conversion_factor": factor}
-        if comments.startswith("Cube file from ASE") and q != "raw":
-            meta["note"] = ("written by ASE, which stores the array it is given without converting it; if that "
-                            "array was already per Å³, read with quantity='raw' (check Grid.integrate())")
+                "length_unit": "bohr" if signs[0] else "angstrom", "conversion_factor": factor,
+                "unit_convention": conv["convention"], "unit_convention_reason": conv["reason"]}
+        for key in ("integral_if_angstrom", "integral_if_bohr", "evidence"):
+            if key in conv:
+                meta[f"unit_{key}"] = conv[key]
         grids.append(Grid(values=vals, cell=cell, origin=origin, atoms=atoms, unit=unit, source=str(path),
                           name=names[k], pbc=True, meta=meta))
     return grids
+
+
+def _unit_convention(data, steps, q, atoms, comments, units, expected, path) -> dict:
+    """Values per bohr³ (cube format) or per Å³ (ASE's writer): given, or decided from the integral."""
+    from .conventions import UNIT_CONVENTIONS, decide_convention
+    if units not in UNIT_CONVENTIONS:
+        raise InputFormatError(path, None, f"units must be one of {UNIT_CONVENTIONS}, got {units!r}", field="units")
+    if units != "auto":
+        what = "values per Å³ / Å^-3/2 / eV (ASE's convention)" if units == "angstrom" else \
+            "values in atomic units (the cube format's convention)"
+        return {"convention": units, "reason": f"given by the caller (units={units!r}): {what}"}
+    dv = abs(float(np.linalg.det(steps)))                 # voxel volume, Å³
+    first = data[..., 0]
+    if q == "orbital":
+        integral = float(np.einsum("ijk,ijk->", first, first)) * dv
+    else:
+        integral = float(first.sum(dtype=np.float64)) * dv
+    kind = q
+    if q == "density" and expected is None:
+        # a non-negative field: a total density or the density of a state; try the total first
+        res = decide_convention(integral, "density", atoms=atoms, comments=comments, source=path)
+        if res["evidence"] == "integral":
+            return res
+        kind = "state"
+    return decide_convention(integral, kind, atoms=atoms, comments=comments, expected=expected, source=path)
 
 
 def write_cube(path, grid: Grid) -> "Path":  # noqa: F821

@@ -17,9 +17,11 @@ __all__ = ["load_family", "check_manifest", "LABEL_KEYS", "MAX_MANIFEST_BYTES", 
 
 #: free labels a case may carry directly (others go under ``[case.labels]``)
 LABEL_KEYS = ("motif", "cation", "anion", "vacancy", "defect", "variant")
-_FAMILY_KEYS = {"name", "description"}
-_HOST_KEYS = {"name", "path", "description"}
-_CASE_KEYS = {"name", "host", "path", "charge", "labels", "description", *LABEL_KEYS}
+_FAMILY_KEYS = {"name", "description", "units"}
+_HOST_KEYS = {"name", "path", "description", "units", "edges"}
+_CASE_KEYS = {"name", "host", "path", "charge", "labels", "description", "units", *LABEL_KEYS}
+#: values of the ``units`` key (cube value convention, see orbtool.io.read_grids)
+UNIT_CHOICES = ("auto", "bohr", "angstrom")
 _TOP_KEYS = {"family", "references", "host", "case"}
 
 #: limits that keep a hostile or mistaken manifest from exhausting time or memory (a family of a
@@ -118,7 +120,9 @@ def check_manifest(path):
         fam = {}
     for k in fam:
         if k not in _FAMILY_KEYS:
-            problems.append((at("family", 0, k), f"unknown key {k!r} in [family] (allowed: name, description)"))
+            problems.append((at("family", 0, k), f"unknown key {k!r} in [family] (allowed: name, description, "
+                             "units)"))
+    _check_units(fam, lambda: at("family", 0, "units"), "[family]", problems)
     for k in ("name", "description"):
         if k in fam and not isinstance(fam[k], str):
             problems.append((at("family", 0, k), f"[family] {k} must be a string"))
@@ -148,6 +152,12 @@ def check_manifest(path):
             else:
                 host_names[name] = at("host", i, "name")
         _check_path(h.get("path"), base, "host", i, at, problems)
+        _check_units(h, lambda: at("host", i, "units"), f"[[host]] #{i + 1}", problems)
+        if "edges" in h and not (isinstance(h["edges"], (int, float, str)) and not isinstance(h["edges"], bool)):
+            problems.append((at("host", i, "edges"), "edges must be a band-structure file (path) or the true gap (eV)"))
+        elif isinstance(h.get("edges"), str) and not (base / h["edges"]).is_file():
+            problems.append((at("host", i, "edges"), f"edges file {h['edges']!r} does not exist (relative to the "
+                             "manifest)"))
     case_names: dict[str, int] = {}
     if not cases:
         problems.append((None, "no [[case]] tables"))
@@ -177,7 +187,13 @@ def check_manifest(path):
         if "labels" in c and not isinstance(c["labels"], dict):
             problems.append((at("case", i, "labels"), "labels must be a table"))
         _check_path(c.get("path"), base, "case", i, at, problems)
+        _check_units(c, lambda: at("case", i, "units"), f"[[case]] #{i + 1}", problems)
     return data, problems, lines
+
+
+def _check_units(tab, line, where, problems):
+    if "units" in tab and tab["units"] not in UNIT_CHOICES:
+        problems.append((line(), f"units of {where} must be one of {', '.join(UNIT_CHOICES)}, got {tab['units']!r}"))
 
 
 def _required(tab, keys, kind, i, at, problems):
@@ -191,8 +207,8 @@ def _required(tab, keys, kind, i, at, problems):
 def _check_path(value, base, kind, i, at, problems):
     if isinstance(value, str) and value:
         p = (base / value)
-        if not p.is_dir():
-            what = "is not a folder" if p.exists() else "does not exist"
+        if not p.exists():
+            what = "does not exist"
             problems.append((at(kind, i, "path"), f"{kind} path {value!r} {what} (relative to the manifest)"))
 
 
@@ -213,15 +229,20 @@ def load_family(manifest_path, *, grids: bool = True) -> Family:
         raise InputFormatError(path, problems[0][0], f"{len(problems)} problem(s) in the manifest:\n{body}")
     base = path.parent
     host_runs = {}
+    fam_units = data.get("family", {}).get("units", "auto")
     for h in data.get("host", []):
-        host_runs[h["name"]] = scan_run(base / h["path"], grids=grids)
+        host_runs[h["name"]] = scan_run(base / h["path"], grids=grids, units=h.get("units", fam_units))
+    hosts = {h["name"]: h for h in data.get("host", [])}
     cases = []
     for c in data.get("case", []):
         labels = {k: c[k] for k in LABEL_KEYS if k in c}
         labels.update(c.get("labels", {}))
         hr = host_runs.get(c.get("host"))
+        edges = hosts.get(c.get("host"), {}).get("edges")
+        if isinstance(edges, str):
+            edges = base / edges
         case = load_case(base / c["path"], charge=int(c.get("charge", 0)), name=c["name"], labels=labels,
-                         grids=grids, _host_run=hr)
+                         grids=grids, units=c.get("units", fam_units), edges=edges, _host_run=hr)
         if hr is not None:
             case = case.replace(provenance=case.provenance + (f"host {c['host']!r} from the manifest",))
         cases.append(case)
