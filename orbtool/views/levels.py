@@ -147,8 +147,15 @@ def level_diagram(data: Mapping[str, Mapping], *, y_range: tuple[float, float], 
 
 
 def update_level_diagram(fig, data: Mapping[str, Mapping]) -> None:
-    """Reassign the data of every named source of ``fig``."""
+    """Reassign the data of the named sources of ``fig`` whose columns changed.
+
+    Sources left as they were send nothing to the browser (each reassignment
+    is one message through the notebook's comm, which is what a knob event
+    waits on)."""
     sources = named_sources(fig, LEVEL_SOURCES)
     for n in LEVEL_SOURCES:
         if n in data:
-            sources[n].data = dict(data[n])
+            new = {k: list(v) for k, v in data[n].items()}
+            old = sources[n].data
+            if set(old) != set(new) or any(list(old[k]) != new[k] for k in new):
+                sources[n].data = new
