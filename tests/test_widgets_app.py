@@ -171,8 +171,11 @@ def test_element_colours_and_density_legend(si):
     reps = [m for m in sv.view._ngl_msg_archive if m.get("methodName") == "addRepresentation"]
     colours = {m["kwargs"].get("color") for m in reps}
     assert style.element_colour("Si") in colours
-    cell = [m for m in reps if m["args"][0] == "unitcell"][0]["kwargs"]
-    assert cell["colorValue"] == int(style.MUTED[1:], 16)  # grey as asked, as NGL's number
+    assert not [m for m in reps if m["args"][0] == "unitcell"]  # NGL's orange cell is not used
+    shapes = [m for m in sv.view._ngl_msg_archive if m.get("methodName") == "addShape"]
+    cell = [m for m in shapes if m["args"][0] == "cell"][0]["args"][1]
+    assert len(cell) == 12 and all(e[3] == pytest.approx([int(style.MUTED[i:i + 2], 16) / 255 for i in (1, 3, 5)])
+                                   for e in cell)
 
 
 def test_structure_state_set_before_the_browser_loads_rebuilds_the_view(si):

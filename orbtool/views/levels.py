@@ -86,7 +86,8 @@ def level_diagram_data(prediction, dangling: float | None = None, *, window: flo
         coupled["y"].append(e)
         coupled["ty"].append(ty)
         coupled["tx"].append(_X_LEVELS[1] + 0.12)
-        coupled["text"].append(f"{lab} ×{m}" if m > 1 else lab)
+        lab = "" if lab.strip() in ("?", "") else lab  # "?": a distortion lowered the symmetry, no label applies
+        coupled["text"].append((f"{lab} ×{m}" if lab else f"×{m}") if m > 1 else lab)
         coupled["colour"].append(style.LEVEL if is_defect else style.INK)
         coupled["width"].append(4.0 if is_defect else 1.5)
     onsite = {"x0": [], "x1": [], "y": [], "text": []}

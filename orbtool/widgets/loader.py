@@ -98,9 +98,10 @@ class Loader:
         self._upload_names: list[str] = []
         wide = {"description_width": "120px"}
         self.path = w.Text(value=str(path), placeholder="defect run folder, family.toml or one file",
-                           description="defect / family", style=wide, layout=w.Layout(width="560px"))
+                           description="defect / family", style=wide,
+                           layout=w.Layout(width="auto", flex="1 1 auto", max_width="560px"))
         self.host = w.Text(value="", placeholder="optional: pristine host run folder or its POSCAR/structure file",
-                           description="host", style=wide, layout=w.Layout(width="560px"))
+                           description="host", style=wide, layout=w.Layout(width="auto", max_width="560px"))
         self.button = w.Button(description="Load", button_style="primary", icon="folder-open")
         self.upload = w.FileUpload(multiple=True, description="upload defect files", layout=w.Layout(width="200px"))
         self.host_upload = w.FileUpload(multiple=True, description="upload host files",
@@ -110,8 +111,10 @@ class Loader:
         self.button.on_click(lambda _: self.load(self.path.value, self.host.value))
         self.upload.observe(self._on_upload, names="value")
         self.host_upload.observe(self._on_host_upload, names="value")
-        self.widget = w.VBox([w.HBox([self.path, self.button]), self.host,
-                              w.HBox([self.upload, self.host_upload, self.progress]), self.status])
+        self.widget = w.VBox([w.HBox([self.path, self.button], layout=w.Layout(width="100%", max_width="680px")),
+                              self.host,
+                              w.HBox([self.upload, self.host_upload, self.progress],
+                                     layout=w.Layout(flex_flow="row wrap")), self.status])
         self.widget.add_class("orbtool-loader")
 
     def load(self, path, host=None, *, name: str | None = None):

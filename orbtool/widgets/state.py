@@ -133,7 +133,8 @@ def _clamp(name, value, lo, hi, unit="") -> tuple[float, str | None]:
 def _choose(name, dropdown, value, notes):
     if value is None or dropdown.value == value:
         return
-    if value in dropdown.options:
+    offered = [o[1] if isinstance(o, tuple) else o for o in dropdown.options]  # (label, value) pairs too
+    if value in offered:
         dropdown.value = value
     else:
         notes.append(f"{name} {value!r} is not offered here; kept {dropdown.value!r}")

@@ -170,6 +170,15 @@ class StructureView:
             view.add_component(self._cube, default_representation=False)
             self._add_surfaces(float(self.isovalue.value))
             self._show_fraction(float(self.isovalue.value))
+        # the cell as 12 thin grey edges in one shape (NGL's unit-cell representation keeps its orange default)
+        cell = np.asarray(self.std_atoms.cell[:])
+        edges = []
+        for c in np.ndindex(2, 2, 2):
+            for k in range(3):
+                if c[k] == 0:
+                    a = np.asarray(c, float) @ cell
+                    edges.append(("cylinder", a.tolist(), (a + cell[k]).tolist(), _rgb(style.MUTED), 0.03))
+        view._add_shape(edges, name="cell")
         if self.site is not None:
             # shapes are nglview components too: add the ghost after the cube so the cube stays component 1;
             # an opaque marker with a label, visible through the (translucent) isosurface
@@ -184,9 +193,9 @@ class StructureView:
         True when rebuilt (nothing else to send)."""
         if getattr(self.view, "loaded", False) or not hasattr(self, "widget"):
             return False
-        old = self.view
+        # the old widget is only dropped, not closed: the browser may be half-way through drawing it, and
+        # closing its model under it makes nglview's front end address a component that is gone ("reprList")
         self.widget.children = (self._build_view(),) + tuple(self.widget.children[1:])
-        old.close()
         return True
 
     def set(self, *, isovalue=None, only_near=None, radius=None, colour_by=None):
@@ -236,8 +245,6 @@ class StructureView:
         for (shell, colour), ix in groups.items():
             v.add_representation("ball+stick", selection=sel(sorted(ix)), color=colour, radius=radius[shell],
                                  component=0)
-        # NGL's unit cell takes its colour as a number (a colour string falls back to its default orange)
-        v.add_representation("unitcell", component=0, colorScheme="uniform", colorValue=int(style.MUTED[1:], 16))
         self.status.value = message_html(f"{len(keep)} of {len(self.atoms)} atoms shown", "info")
         self._show_legend(sorted({symbols[i] for i in keep}))
 

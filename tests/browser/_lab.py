@@ -85,11 +85,12 @@ def ink_fraction(png: bytes) -> float:
 
 def open_notebook(page, port, token, name, timeout_ms=600_000):
     """Open notebook ``name`` in JupyterLab, run all cells, wait for SENTINEL in an output."""
-    page.goto(f"http://127.0.0.1:{port}/lab/tree/{name}?token={token}")
+    page.set_default_timeout(120_000)  # a busy machine: JupyterLab's assets and kernels are slow
+    page.goto(f"http://127.0.0.1:{port}/lab/tree/{name}?token={token}", timeout=300_000)
     page.wait_for_function(
         "() => { const w = window.jupyterapp && window.jupyterapp.shell.currentWidget;"
         " const k = w && w.sessionContext && w.sessionContext.session && w.sessionContext.session.kernel;"
-        " return k && k.connectionStatus === 'connected'; }", timeout=120_000)
+        " return k && k.connectionStatus === 'connected'; }", timeout=300_000)
     page.evaluate("window.jupyterapp.commands.execute('notebook:run-all-cells')")
     page.locator(".jp-OutputArea-output pre", has_text=SENTINEL).wait_for(timeout=timeout_ms)
 

@@ -201,7 +201,8 @@ def test_set_before_display_restore_single_cube_and_hostile_name(chromium, tmp_p
         # a single cube by path: the 3-D view shows it, the header follows the file
         _tab(app, page, "Load", 800)
         app.locator(".orbtool-loader button", has_text="Load").first.click()
-        page.locator(".orbtool-loader .orbtool-msg", has_text="loaded").wait_for(timeout=300_000)
+        # the app switches to the Structure tab, so the loader's message is attached but hidden
+        page.locator(".orbtool-loader .orbtool-msg", has_text="loaded").wait_for(state="attached", timeout=300_000)
         page.wait_for_timeout(3000)
         assert "state.cube" in app.locator(".orbtool-header").first.inner_text()
         png = app.locator("canvas >> visible=true").first.screenshot()
