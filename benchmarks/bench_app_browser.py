@@ -53,12 +53,28 @@ STATE_JS = """(kind) => {
   return txt(".orbtool-level") + "|" + diag;
 }"""
 
+#: resolves with ms from t0 to the frame where the diagram (or the atom count) changed, and the readout
+#: too when its text changes at all (a step can move the level by less than the readout's last digit)
 WAIT_JS = """([kind, before, t0]) => {
   const s = (%s)(kind);
   if (kind === "atoms") return s !== before ? performance.now() - t0 : false;
   const [r0, d0] = before.split("|"); const [r1, d1] = s.split("|");
-  return (r1 !== r0 && d1 !== d0) ? performance.now() - t0 : false;
+  if (d1 === d0) return false;
+  const tr = window.__orbtoolReadoutAt;
+  return Math.max(performance.now(), tr || 0) - t0;
 }""" % STATE_JS
+
+#: marks the time of the first change of the readout after a key press
+WATCH_JS = """() => {
+  window.__orbtoolReadoutAt = null;
+  const e = document.querySelector(".orbtool-level");
+  if (!e) return;
+  if (window.__orbtoolObs) window.__orbtoolObs.disconnect();
+  window.__orbtoolObs = new MutationObserver(() => {
+    if (window.__orbtoolReadoutAt === null) window.__orbtoolReadoutAt = performance.now(); });
+  window.__orbtoolObs.observe(e.closest(".widget-html") || e.parentElement, {subtree: true, childList: true,
+                                                                   characterData: true});
+}"""
 
 SLIDERS = (("Level explorer", "coupling scale", "levels"), ("Level explorer", "breathing", "levels"),
            ("Level explorer", "on-site offset", "levels"), ("Structure", "R (Å)", "atoms"))
@@ -78,15 +94,20 @@ def measure(page, app, tab, label, kind, presses):
     handle = slider.locator(".noUi-handle").first
     handle.focus()
     times = []
+    unchanged = [0]
     for i in range(presses):
         key = "ArrowRight" if (i // 5) % 2 == 0 else "ArrowLeft"  # stay inside the range
         before = page.evaluate(f"({STATE_JS})", kind)
+        page.evaluate(f"({WATCH_JS})()")
         t0 = page.evaluate("performance.now()")
         page.keyboard.press(key)
-        ms = page.wait_for_function(WAIT_JS, arg=[kind, before, t0], timeout=20_000).json_value()
-        times.append(float(ms))
+        try:
+            ms = page.wait_for_function(WAIT_JS, arg=[kind, before, t0], timeout=8_000).json_value()
+            times.append(float(ms))
+        except Exception:  # the step changed nothing visible (e.g. the same atom count): not a response to time
+            unchanged[0] += 1
         page.wait_for_timeout(250)  # a person's pace between presses
-    return times
+    return times, unchanged[0]
 
 
 def main() -> int:
@@ -121,9 +142,10 @@ def main() -> int:
     load1 = os.getloadavg()
     print(f"machine: {os.cpu_count()} cores; load average (1/5/15 min) before {load0[0]:.1f}/{load0[1]:.1f}/"
           f"{load0[2]:.1f}, after {load1[0]:.1f}/{load1[1]:.1f}/{load1[2]:.1f}; {time.strftime('%Y-%m-%d %H:%M')}")
-    print(f"{'slider':<16} {'presses':>7} {'median ms':>10} {'worst ms':>9}")
-    for label, t in results.items():
-        print(f"{label:<16} {len(t):>7} {statistics.median(t):>10.0f} {max(t):>9.0f}")
+    print(f"{'slider':<16} {'timed':>6} {'no change':>9} {'median ms':>10} {'worst ms':>9}")
+    for label, (t, n0) in results.items():
+        med, worst = (statistics.median(t), max(t)) if t else (float("nan"), float("nan"))
+        print(f"{label:<16} {len(t):>6} {n0:>9} {med:>10.0f} {worst:>9.0f}")
     return 0
 
 
