@@ -43,7 +43,7 @@ __all__ = [
     "HOST", "DEFECT", "SHELL_COLOURS", "LOBE_POSITIVE", "LOBE_NEGATIVE", "VACANCY_GHOST",
     "CATEGORICAL", "CATEGORICAL_NAMES", "VACANCY_GLYPHS", "DASHES", "FONT", "ENERGY_LABEL",
     "colour_cycle", "glyph_for", "shell_colour", "mpl_dash", "bokeh_theme", "style_figure", "matplotlib_rc",
-    "use_matplotlib",
+    "use_matplotlib", "spread_labels", "ELEMENT_COLOURS", "element_colour",
 ]
 
 # ----------------------------------------------------------------- neutrals
@@ -200,3 +200,57 @@ def use_matplotlib():
 
     with matplotlib.rc_context(matplotlib_rc()):
         yield
+
+
+def spread_labels(ys, gap: float, lo: float | None = None, hi: float | None = None) -> list[float]:
+    """Label positions at least ``gap`` apart, as close as possible to ``ys``.
+
+    Used for symmetry labels beside nearly degenerate levels: labels are
+    pushed apart in order (upwards, then back down from ``hi`` if the top
+    one left the axis), so their text boxes never overlap while each stays
+    next to its level (a leader line shows where it came from). Same units
+    as ``ys``; the returned list follows the input order.
+    """
+    order = sorted(range(len(ys)), key=lambda i: ys[i])
+    out = [float(ys[i]) for i in order]
+    for k in range(1, len(out)):
+        out[k] = max(out[k], out[k - 1] + gap)
+    if hi is not None and out and out[-1] > hi:
+        out[-1] = hi
+        for k in range(len(out) - 2, -1, -1):
+            out[k] = min(out[k], out[k + 1] - gap)
+    if lo is not None and out and out[0] < lo:  # too many labels for the span: keep order, start at lo
+        out[0] = lo
+        for k in range(1, len(out)):
+            out[k] = max(out[k], out[k - 1] + gap)
+    res = [0.0] * len(out)
+    for rank, i in enumerate(order):
+        res[i] = out[rank]
+    return res
+
+
+# ----------------------------------------------------------- element colours
+#: orbtool's own element palette for the 3-D view (grouped by chemistry, not copied from any viewer):
+#: chalcogens and halogens warm, group-14/15 hosts cool, alkali/alkaline earth pale greens,
+#: transition and post-transition metals in the categorical hues; unknown elements fall back by
+#: a stable hash into :data:`CATEGORICAL`.
+ELEMENT_COLOURS = {
+    "H": "#f2f0ea", "Li": "#b5d9a8", "Na": "#a3cf93", "K": "#8fc27d", "Rb": "#7cb56b", "Cs": "#69a85a",
+    "Be": "#d7e8b0", "Mg": "#c4dc96", "Ca": "#b0cf80", "Sr": "#9cc26b", "Ba": "#88b556",
+    "B": "#e9b7a0", "Al": "#a9a9c9", "Ga": "#8d8db8", "In": "#7272a6", "Tl": "#585894",
+    "C": "#4d4d4d", "Si": "#6f8faf", "Ge": "#56789b", "Sn": "#3e6287", "Pb": "#2a4c72",
+    "N": "#5a7fd6", "P": "#e08a3c", "As": "#b9794a", "Sb": "#9a6a4d", "Bi": "#7c5a4f",
+    "O": "#d9452b", "S": "#e8c530", "Se": "#d69a2d", "Te": "#b87a2c",
+    "F": "#8ccf5e", "Cl": "#5cb85c", "Br": "#a0522d", "I": "#7b3f8c",
+    "Ti": "#9aa3ad", "V": "#8a8fa0", "Cr": "#7f8fa6", "Mn": "#9c6fa8", "Fe": "#c0603a", "Co": "#b0708f",
+    "Ni": "#70a090", "Cu": "#c88a4a", "Zn": "#8c90b8", "Cd": "#e0c060", "Hg": "#b8b8d0", "Ag": "#c0c0c8",
+    "Au": "#d4af37", "Zr": "#94b0b0", "Hf": "#7fa0a0", "Nb": "#80a8b8", "Mo": "#70a0a8", "W": "#6090a0",
+}
+
+
+def element_colour(symbol: str) -> str:
+    """Colour of element ``symbol`` in the 3-D view (:data:`ELEMENT_COLOURS`,
+    else a stable pick from :data:`CATEGORICAL`)."""
+    if symbol in ELEMENT_COLOURS:
+        return ELEMENT_COLOURS[symbol]
+    return CATEGORICAL[sum(map(ord, symbol)) % len(CATEGORICAL)]

@@ -63,7 +63,7 @@ def saved(tmp_path_factory, demo_family):
     app.structure.isovalue.value = app.structure.isovalue.value * 1.7
     app.structure.only_near.value = True
     app.structure.radius.value = 7.5
-    app.board.x.value = app.board.x.options[-1]
+    app.board.x.value = app.board.x.options[-1][1]  # options are (plain name, column key)
     app.tabs.selected_index = 3
     values = _widget_values(app)
     path = tmp / "work.orbsession"

@@ -6,6 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 from .. import style
+from ._layout import declutter
 from .export import new_figure, styled
 
 
@@ -69,12 +70,14 @@ def mechanism_figure(mech, *, width: str = "single", title: str | None = None):
         if len(lab) > 8:
             lab = lab.split("+")[0] + "+…"
         placed.append([e, f"{lab}" + (f" ×{n}" if n > 1 else ""), col, is_defect])
-    gap_min = 0.045 * span
-    for k in range(1, len(placed)):
-        placed[k][0] = max(placed[k][0], placed[k - 1][0] + gap_min)
+    # spread within the axes (never pushed above the top, where the title is)
+    ys = style.spread_labels([p[0] for p in placed], 0.045 * span, lo=lo + 0.02 * span, hi=hi - 0.03 * span)
+    for p, y in zip(placed, ys):
+        p[0] = y
+    level_texts = []
     for (y, text, col, is_defect), (e, _, _) in zip(placed, lv_groups):
-        ax.text(xs_lv[1] + 0.08, y, text, ha="left", va="center", fontsize=5.5, color=col,
-                fontweight="bold" if is_defect else "normal")
+        level_texts.append(ax.text(xs_lv[1] + 0.08, y, text, ha="left", va="center", fontsize=5.5, color=col,
+                                   fontweight="bold" if is_defect else "normal"))
         if abs(y - e) > 1e-9:
             ax.plot([xs_lv[1], xs_lv[1] + 0.07], [e, y], color=col, lw=0.4)
     for e, n, kind in on_groups:  # correlation lines: the orbitals the defect level is built from
@@ -82,18 +85,21 @@ def mechanism_figure(mech, *, width: str = "single", title: str | None = None):
     if mech.sigma > 0:
         ax.fill_between(xs_lv, mech.level - mech.sigma, mech.level + mech.sigma, color=style.LEVEL_BAND,
                         alpha=0.45, lw=0)
-    x = 4.3
+    x0 = 4.3 + max([0.09 * len(t.get_text()) for t in level_texts] + [0.0]) - 0.8  # clear of the labels
+    x0 = max(x0, 4.3)
+    x = x0
     shown = [(k, dv) for k, dv in mech.knobs.items() if dv is not None and np.isfinite(dv)][:3]
+    knob_texts = []
     for k, dv in shown:
         ax.annotate("", xy=(x, mech.level + dv), xytext=(x, mech.level),
                     arrowprops=dict(arrowstyle="-|>", color=style.CATEGORICAL[0], lw=1.2, shrinkA=0, shrinkB=0))
         ax.plot([x - 0.25, x + 0.25], [mech.level, mech.level], color=style.LEVEL, lw=0.8)
-        ax.text(x, mech.level + dv + (0.03 if dv >= 0 else -0.03) * span, f"{k}\n{dv:+.2f} eV",
-                fontsize=5, va="bottom" if dv >= 0 else "top", ha="center")
+        knob_texts.append(ax.text(x, mech.level + dv + (0.03 if dv >= 0 else -0.03) * span, f"{k}\n{dv:+.2f} eV",
+                                  fontsize=5, va="bottom" if dv >= 0 else "top", ha="center"))
         x += 1.1
-    ax.set_xlim(-1.3, max(x, 4.3) + 0.1)
+    ax.set_xlim(-1.3, max(x, x0) + 0.1)
     ax.set_ylim(lo, hi)
-    ticks = [np.mean(xs_on), np.mean(xs_lv)] + ([4.3 + 0.55 * (len(shown) - 1)] if shown else [])
+    ticks = [np.mean(xs_on), np.mean(xs_lv)] + ([x0 + 0.55 * (len(shown) - 1)] if shown else [])
     names = ["orbital\nenergies", "cluster\nlevels"] + (["knobs"] if shown else [])
     ax.set_xticks(ticks, names)
     ax.tick_params(axis="x", length=0)
@@ -105,6 +111,8 @@ def mechanism_figure(mech, *, width: str = "single", title: str | None = None):
         strongest = f"; strongest coupling {v:+.2f} eV"
     ax.set_title(title or f"{mech.case}\nlevel {mech.level:+.2f} ± {mech.sigma:.2f} eV, {mech.verdict}{strongest}",
                  loc="left")
+    declutter(ax, level_texts, leader=False)  # measured with the renderer: no label on another
+    declutter(ax, knob_texts)
     return fig
 
 

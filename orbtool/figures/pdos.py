@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from .. import style
+from ._layout import declutter
 from .export import new_figure, styled
 
 
@@ -59,19 +60,23 @@ def pdos_figure(case, site, states=(), *, edges=None, alignment=None, window=Non
             groups[-1].append(st)
         else:
             groups.append([st])
+    labels = []
     for g in groups:
         x = float(np.mean([st.above_vbm for st in g]))
         ax.axvline(x, color=style.LEVEL, lw=1.2)
         occ = sum(st.occupation for st in g)
-        ax.text(x, ymax * 1.02, f"{len(g)} state{'s' if len(g) > 1 else ''}, {occ:.2f} e", color=style.LEVEL,
-                ha="center", va="bottom", fontsize=5.5)
+        labels.append(ax.text(x, ymax * 1.03, f"{len(g)} state{'s' if len(g) > 1 else ''}, {occ:.2f} e",
+                              color=style.LEVEL, ha="center", va="bottom", fontsize=5.5,
+                              bbox=dict(boxstyle="square,pad=0.15", fc=style.PAPER, ec="none", alpha=0.85)))
     ax.set_xlim(*window)
-    ax.set_ylim(0, ymax * 1.15)
+    # head room for the in-gap labels (stacked when close in energy), the legend below the axes
+    ax.set_ylim(0, ymax * (1.15 + 0.09 * max(len(groups) - 1, 0)))
     ax.set_xlabel(style.ENERGY_LABEL)
     ax.set_ylabel("first-shell PDOS (states/eV)")
-    ax.legend(loc="upper left", ncols=3, fontsize=5.5)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), ncols=3, fontsize=5.5)
     ax.set_title(f"{case.name}: {len(first_def)} first-shell atoms\nhost dashed, defect solid "
                  f"(aligned by {shift:+.3f} eV)", loc="left", fontsize=6.5)
+    declutter(ax, labels, direction=1, leader=False)  # stacked upwards along their (coloured) state lines
     return fig
 
 

@@ -67,7 +67,7 @@ def state_slice_figure(grid, site, *, normal=None, half_width: float = 6.0, widt
     ax.grid(False)
     cb = fig.colorbar(im, ax=ax, shrink=0.85)
     cb.set_label("state density (1/Å³)")
-    ax.set_title(f"in-gap state density; plane normal ({n[0]:.2f}, {n[1]:.2f}, {n[2]:.2f}), vacancy ×",
+    ax.set_title(f"in-gap state density (vacancy ×)\nplane normal ({n[0]:.2f}, {n[1]:.2f}, {n[2]:.2f})",
                  loc="left", fontsize=6.5)
     return fig
 

@@ -57,7 +57,7 @@ def trend_figure(rows, x: str, *, y: str = "above_vbm", colour_by: str = "motif"
         ys = np.array([r[y] for r in pts])
         if len(pts) >= 3 and np.ptp(xs) > 0 and np.ptp(ys) > 0:
             r_ = float(np.corrcoef(xs, ys)[0, 1])
-            ax.set_title(f"Pearson r = {r_:+.2f} over {len(pts)} defect states (bars: each host's gap)",
+            ax.set_title(f"Pearson r = {r_:+.2f} over {len(pts)} defect states\n(bars: each host's gap)",
                          loc="left", fontsize=6.5)
     fig.legend(loc="outside lower center", ncols=3, fontsize=5.5)
     return fig

@@ -50,7 +50,7 @@ def group_levels(energies, labels=None, tol: float = 1e-3) -> list[tuple[float, 
 
 
 def level_diagram_data(prediction, dangling: float | None = None, *, window: float = 2.0,
-                       coupling_scale: float = 1.0) -> dict[str, dict]:
+                       coupling_scale: float = 1.0, label_gap: float = 0.035) -> dict[str, dict]:
     """Column data of every source of :func:`level_diagram`.
 
     Parameters
@@ -63,6 +63,10 @@ def level_diagram_data(prediction, dangling: float | None = None, *, window: flo
         Levels within ``window`` eV below the VBM or above the CBM are kept.
     coupling_scale : float
         Shown beside the connectors.
+    label_gap : float
+        Smallest distance between two symmetry labels as a fraction of the
+        plotted energy span (0.035 of the 440 px default figure ≈ one 9 pt
+        text line); labels are spread with :func:`orbtool.style.spread_labels`.
     """
     vbm = float(prediction.vbm)
     cbm = float(prediction.cbm) if np.isfinite(prediction.cbm) else vbm + 2.0
@@ -71,13 +75,19 @@ def level_diagram_data(prediction, dangling: float | None = None, *, window: flo
     keep = (lv >= lo) & (lv <= hi)
     groups = group_levels(lv[keep], [l for l, k in zip(prediction.labels, keep) if k])
     level = float(prediction.level)
-    coupled = {"x0": [], "x1": [], "y": [], "text": [], "colour": [], "width": []}
-    for e, m, lab in groups:
+    coupled = {"x0": [], "x1": [], "y": [], "ty": [], "tx": [], "text": [], "colour": [], "width": []}
+    # symmetry labels nudged apart (never overlapping) within the fixed y range; a leader shows the level
+    gap = label_gap * (hi - lo) if label_gap else 0.0
+    label_y = style.spread_labels([g[0] for g in groups], gap, lo=lo, hi=hi)
+    for (e, m, lab), ty in zip(groups, label_y):
         is_defect = abs(e - level) <= 1e-3
         coupled["x0"].append(_X_LEVELS[0])
         coupled["x1"].append(_X_LEVELS[1])
         coupled["y"].append(e)
-        coupled["text"].append(f"{lab} ×{m}" if m > 1 else lab)
+        coupled["ty"].append(ty)
+        coupled["tx"].append(_X_LEVELS[1] + 0.12)
+        lab = "" if lab.strip() in ("?", "") else lab  # "?": a distortion lowered the symmetry, no label applies
+        coupled["text"].append((f"{lab} ×{m}" if lab else f"×{m}") if m > 1 else lab)
         coupled["colour"].append(style.LEVEL if is_defect else style.INK)
         coupled["width"].append(4.0 if is_defect else 1.5)
     onsite = {"x0": [], "x1": [], "y": [], "text": []}
@@ -129,15 +139,24 @@ def level_diagram(data: Mapping[str, Mapping], *, y_range: tuple[float, float], 
              text_color=style.MUTED, y_offset=-6)
     fig.segment(x0="x0", y0="y", x1="x1", y1="y", source=src[LEVEL_SOURCES[1]], line_color="colour",
                 line_width="width")
-    fig.text(x="x1", y="y", text="text", source=src[LEVEL_SOURCES[1]], text_font_size="9pt", x_offset=6,
+    fig.segment(x0="x1", y0="y", x1="tx", y1="ty", source=src[LEVEL_SOURCES[1]], line_color="colour",
+                line_width=0.8)
+    fig.text(x="tx", y="ty", text="text", source=src[LEVEL_SOURCES[1]], text_font_size="9pt", x_offset=3,
              text_baseline="middle", text_color="colour")
     remember(fig, src)
     return style.style_figure(fig)
 
 
 def update_level_diagram(fig, data: Mapping[str, Mapping]) -> None:
-    """Reassign the data of every named source of ``fig``."""
+    """Reassign the data of the named sources of ``fig`` whose columns changed.
+
+    Sources left as they were send nothing to the browser (each reassignment
+    is one message through the notebook's comm, which is what a knob event
+    waits on)."""
     sources = named_sources(fig, LEVEL_SOURCES)
     for n in LEVEL_SOURCES:
         if n in data:
-            sources[n].data = dict(data[n])
+            new = {k: list(v) for k, v in data[n].items()}
+            old = sources[n].data
+            if set(old) != set(new) or any(list(old[k]) != new[k] for k in new):
+                sources[n].data = new

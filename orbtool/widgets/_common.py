@@ -29,12 +29,46 @@ def ensure_bokeh() -> None:
     _BOKEH_READY = True
 
 
-def bokeh_pane(model):
-    """A bokeh model wrapped as an ipywidget (``jupyter_bokeh.BokehModel``)."""
-    from jupyter_bokeh import BokehModel
+_PANE_CLASS = None
 
+
+def _pane_class():
+    """``jupyter_bokeh.BokehModel`` that never loses a change made before it is shown.
+
+    The browser side of ``BokehModel`` applies document patches only in a
+    rendered view and renders a new view from the ``render_bundle`` taken
+    when the widget was created: a source changed in between (e.g.
+    ``explorer.set(...)`` before the cell displaying the app) was lost, so
+    the diagram lagged the readout. This subclass counts the browser views
+    (``_view_count``) and, while none is shown, also refreshes the
+    ``render_bundle`` after each change, so the first view renders the
+    current state. Once shown, changes go out as patches only (fast path).
+    """
+    global _PANE_CLASS
+    if _PANE_CLASS is None:
+        from jupyter_bokeh import BokehModel
+
+        class BokehPane(BokehModel):
+            def _document_patched(self, event):
+                super()._document_patched(event)
+                if not self._view_count:  # nothing shown yet: the first view must start from the current state
+                    self.render_bundle = self._model_to_traits(self._model)
+
+        _PANE_CLASS = BokehPane
+    return _PANE_CLASS
+
+
+def bokeh_pane(model):
+    """A bokeh model wrapped as an ipywidget (a ``jupyter_bokeh.BokehModel``
+    that keeps changes made before display, see :func:`_pane_class`)."""
     ensure_bokeh()
-    return BokehModel(model, combine_events=True)
+    return _pane_class()(model, combine_events=True, _view_count=0)
+
+
+def esc(value) -> str:
+    """Any user text (case, family, file or element names) made safe for an
+    HTML widget or a bokeh HTML string."""
+    return html.escape("" if value is None else str(value), quote=True)
 
 
 def message_html(text: str, kind: str = "info") -> str:

@@ -14,8 +14,8 @@ from pathlib import Path
 import ipywidgets as w
 
 from .. import style
-from ._common import attempt, ensure_bokeh, message_html
-from .loader import Loader
+from ._common import attempt, ensure_bokeh, esc, message_html
+from .loader import Loader, describe
 
 __all__ = ["App", "fit_case"]
 
@@ -87,6 +87,7 @@ class App:
         self.tabs = w.Tab(children=[self.panes[t] for t in _TABS])
         for i, t in enumerate(_TABS):
             self.tabs.set_title(i, t)
+        self.tabs.observe(self._tab_shown, names="selected_index")
         from .state import SessionBar
 
         self.session = SessionBar(self)
@@ -98,7 +99,7 @@ class App:
                 self.loader.load(case_or_family)
             else:
                 self._loaded(case_or_family)
-                self.loader.value = case_or_family
+                self.loader.value, self.loader.read_from = case_or_family, None
 
     # -------------------------------------------------------------- loading
     def _loaded(self, obj):
@@ -148,27 +149,65 @@ class App:
                 self.analysis = _fallback_analysis(case, err)
         a = self.analysis
         where = f" — family {self.family.name}" if self.family is not None else ""
-        self.header.value = (f'<div style="font-family:{style.FONT};color:{style.INK}"><b>{case.name}</b>{where}'
-                             + (f" · {a.site.element} vacancy, {a.site.point_group}" if a.site is not None else "")
-                             + "</div>")
+        site = f" · {a.site.element} vacancy, {a.site.point_group}" if a.site is not None else ""
+        self._header(case.name, where + site)
         self._structure_tab(case, a)
         self._pdos_tab(case, a)
         self._levels_tab(case, a)
         self.tabs.selected_index = _TABS.index("Structure")
 
+    def _header(self, title, rest="", missing=""):
+        """The line above the tabs: every user-given name is escaped (case,
+        family and file names are text, never markup)."""
+        extra = (f'<br><small style="color:{style.MUTED}">{esc(missing)}</small>' if missing else "")
+        self.header.value = (f'<div class="orbtool-header" style="font-family:{style.FONT};color:{style.INK}">'
+                             f"<b>{esc(title)}</b>{esc(rest)}{extra}</div>")
+
     def show_data(self, obj):
-        """A single file: a PDOS goes to the PDOS tab, a grid to the structure tab."""
+        """A single file: a PDOS goes to the PDOS tab, a grid or a structure to
+        the structure tab; every other tab and the header say what is missing."""
         from .pdos import PDOSExplorer
         from .structure import StructureView
 
-        if hasattr(obj, "channels"):
-            self.pdos = PDOSExplorer(defect_pdos=obj)
-            self.panes["PDOS"].children = [self.pdos.widget]
-        elif hasattr(obj, "values") and getattr(obj, "atoms", None) is not None:
-            self.structure = StructureView(obj.atoms, grid=obj)
-            self.panes["Structure"].children = [self.structure.widget]
-        else:
+        self.family = self.family_analysis = self.case = self.analysis = None
+        self.structure = self.pdos = self.levels = self.board = None
+        name = describe(obj)
+        is_pdos = hasattr(obj, "channels")
+        is_grid = hasattr(obj, "values") and hasattr(obj, "cell")
+        atoms = obj if hasattr(obj, "get_chemical_symbols") else getattr(obj, "atoms", None)
+        if not (is_pdos or is_grid or atoms is not None):
             raise ValueError(f"nothing to show for a {type(obj).__name__}")
+        need_case = "load the defect run folder with its host (path or upload) for the vacancy, states and model"
+        if is_pdos:
+            self.pdos = PDOSExplorer(defect_pdos=obj)
+            self.panes["PDOS"].children = [self.pdos.widget, _note("one PDOS file: no band edges or in-gap states "
+                                                                   "(" + need_case + ")", "info")]
+        else:
+            self.panes["PDOS"].children = [_note(f"no PDOS in {name}; {need_case}", "info")]
+        if atoms is not None:
+            grid = obj if is_grid else None
+            self.structure = StructureView(atoms, grid=grid)
+            what = "the grid and its atoms" if grid is not None else "the atoms"
+            self.panes["Structure"].children = [self.structure.widget, _note(
+                f"showing {what} only: no vacancy site (needs the host structure), so no shells or R toggle",
+                "info")]
+        elif is_grid:
+            self.panes["Structure"].children = [_note(f"{name} holds a grid without atoms: nothing to place it on; "
+                                                      "load it with its structure", "warn")]
+        else:
+            self.panes["Structure"].children = [_note(f"no structure in {name}", "info")]
+        self.panes["Level explorer"].children = [_note(f"no model to explore from one file; {need_case}", "info")]
+        self.panes["Family"].children = [_note("a single file is loaded (load a family manifest for the board)",
+                                               "info")]
+        missing = ("missing for a full analysis: host structure, defect PDOS/projections"
+                   + ("" if is_grid else ", state grid"))
+        self._header(name, " · one file", missing)
+        self.tabs.selected_index = _TABS.index("PDOS" if is_pdos else "Structure")
+
+    def _tab_shown(self, change):
+        # nglview measures its canvas when shown; a view built in a hidden tab needs a resize to draw
+        if change["new"] == _TABS.index("Structure") and self.structure is not None:
+            attempt(self.structure.view.handle_resize)
 
     # ----------------------------------------------------------------- tabs
     def _state_grid(self, case):

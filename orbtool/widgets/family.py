@@ -6,7 +6,7 @@ from __future__ import annotations
 import ipywidgets as w
 
 from ..views._sources import named_sources
-from ..views.family import FAMILY_SOURCE, family_board, family_columns, numeric_keys, set_axes
+from ..views.family import AXIS_KEYS, FAMILY_SOURCE, column_label, family_board, family_columns, numeric_keys, set_axes
 from ._common import attempt, bokeh_pane, message_html
 
 __all__ = ["FamilyBoard", "board_rows"]
@@ -66,13 +66,19 @@ class FamilyBoard:
     def __init__(self, rows, on_select=None, errors=None):
         self.on_select = on_select
         self.cols = family_columns(rows)
-        axes = [k for k in numeric_keys(self.cols) if k != "above_vbm"] or ["above_vbm"]
+        keys = numeric_keys(self.cols)
+        keys = [k for k in AXIS_KEYS if k in keys] + [k for k in keys if k not in AXIS_KEYS]
+        axes = [k for k in keys if k != "above_vbm"] or ["above_vbm"]
         first = next((k for k in ("site_distance_mean", "breathing_fraction", "gap") if k in axes), axes[0])
-        self.x = w.Dropdown(options=axes, value=first, description="x axis")
-        self.y = w.Dropdown(options=numeric_keys(self.cols), value="above_vbm" if "above_vbm" in self.cols
-                            else numeric_keys(self.cols)[0], description="y axis")
+        # options show plain names with units; the value stays the column key (sessions, code)
+        wide = {"description_width": "50px"}
+        self.x = w.Dropdown(options=[(column_label(k), k) for k in axes], value=first, description="x axis",
+                            style=wide, layout=w.Layout(width="340px"))
+        self.y = w.Dropdown(options=[(column_label(k), k) for k in keys], value="above_vbm" if "above_vbm" in
+                            self.cols else keys[0], description="y axis", style=wide, layout=w.Layout(width="340px"))
         self.figure, self.table = family_board(self.cols, x=self.x.value, y=self.y.value)
-        self.pick = w.Dropdown(options=["(pick a case)"] + list(self.cols["name"]), description="case")
+        self.pick = w.Dropdown(options=["(pick a case)"] + list(self.cols["name"]), description="case",
+                               style=wide, layout=w.Layout(width="300px"))
         self.x.observe(self._axes, names="value")
         self.y.observe(self._axes, names="value")
         self.pick.observe(self._picked, names="value")
@@ -82,8 +88,10 @@ class FamilyBoard:
         self.errors = w.HTML(message_html("not analysed:\n" + err, "warn") if err else "")
         from bokeh.layouts import column
 
-        self.widget = w.VBox([w.HBox([self.x, self.y, self.pick]), bokeh_pane(column(self.figure, self.table)),
+        pane = w.Box([bokeh_pane(column(self.figure, self.table))], layout=w.Layout(overflow="auto", width="100%"))
+        self.widget = w.VBox([w.HBox([self.x, self.y, self.pick], layout=w.Layout(flex_flow="row wrap")), pane,
                               self.errors])
+        self.widget.add_class("orbtool-board")
 
     def _axes(self, change):
         set_axes(self.figure, self.x.value, self.y.value)

@@ -1,20 +1,77 @@
 """Live level explorer: the level diagram next to structure and chemistry knobs.
 
-Thin by design: every knob event calls ``fit.predict(...)`` once, turns the
-prediction into column data (:func:`orbtool.views.level_diagram_data`) and
-reassigns the figure's sources; nothing else is recomputed.
+Thin by design: the knobs form one :class:`Knobs` state; every view (readout,
+diagram, notes) is drawn from it by :meth:`LevelExplorer.update`, which calls
+``fit.predict(...)`` once, turns the prediction into column data
+(:func:`orbtool.views.level_diagram_data`) and reassigns the figure's
+sources; nothing else is recomputed. Widgets and :meth:`LevelExplorer.set`
+only change the state, so a knob set by code before the panel is displayed
+shows in the readout and in the diagram alike.
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import ipywidgets as w
 import numpy as np
 
 from ..errors import ModelError
 from ..views.levels import level_diagram, level_diagram_data, update_level_diagram
-from ._common import attempt, bokeh_pane, message_html
+from ._common import attempt, bokeh_pane, esc, message_html
 
-__all__ = ["LevelExplorer", "knob_ranges", "srh_factor"]
+__all__ = ["LevelExplorer", "Knobs", "knob_ranges", "srh_factor", "odd_mode_note", "toxic_swap_note"]
+
+AS_FITTED = "(as fitted)"
+
+
+@dataclass(frozen=True)
+class Knobs:
+    """The state of the level explorer: everything its views are drawn from.
+
+    breathing : fraction of the first-shell distance (−0.05 = 5 % inward)
+    mode : distortion-mode name (``VacancySite.distortion_modes`` key) or None
+    amplitude : mode amplitude, Å
+    coupling_scale : factor on the fitted couplings
+    onsite_shift : offset of the first-shell on-site energies, eV
+    swap : "(as fitted)" or "Old → New"
+    """
+
+    breathing: float = 0.0
+    mode: str | None = None
+    amplitude: float = 0.0
+    coupling_scale: float = 1.0
+    onsite_shift: float = 0.0
+    swap: str = AS_FITTED
+
+
+def odd_mode_note(mode: str | None) -> str:
+    """Note for a distortion mode odd under inversion (a ``u`` irrep, e.g. T1u).
+
+    Under inversion such a mode changes sign while the cluster energy does
+    not, so the level shift is even in the amplitude: it starts at second
+    order (∝ amplitude²) and looks flat near zero on the slider (group-theory
+    selection rule; e.g. Dresselhaus, Dresselhaus & Jorio, *Group Theory*,
+    Springer 2008, ch. 7 on Jahn–Teller active modes). Empty for even modes.
+    """
+    irrep = (mode or "").split(".")[0]
+    if not irrep or not irrep.lower().endswith("u"):
+        return ""
+    return (f"{irrep} is odd under inversion: it moves the level only at second order (∝ amplitude²), "
+            "so small amplitudes barely shift it.")
+
+
+def toxic_swap_note(swap: str) -> str:
+    """Caution for a swap that brings in a toxic element (the report's wording)."""
+    if not swap or swap == AS_FITTED or "→" not in swap:
+        return ""
+    from ..family import TOXIC_ELEMENTS
+    from ..pipeline import MODEL_CAUTION, toxic_caution
+
+    new = swap.split("→")[1].strip()
+    if new not in TOXIC_ELEMENTS:
+        return ""
+    return toxic_caution([new]).replace("This family contains", "This swap brings in") + " " + MODEL_CAUTION
 
 #: knob ranges offered when the fit gives none, chosen for usable sliders
 _DEFAULT_RANGES = {"breathing": (-0.15, 0.15), "distortion": (-0.3, 0.3), "coupling_scale": (0.5, 2.0),
@@ -132,15 +189,16 @@ class LevelExplorer:
         self.prediction = pred
         gap = float(pred.cbm) if np.isfinite(pred.cbm) else 2.0
         data = level_diagram_data(pred, self._dangling_energy(None, 0.0), window=window)
-        self.figure = level_diagram(data, y_range=(-window, gap + window))
+        self.figure = level_diagram(data, y_range=(-window, gap + window), width=430)
         self._build_controls(swaps)
-        self._show(pred)
+        self.update()
 
     # ------------------------------------------------------------- controls
     def _slider(self, key, description, step, fmt=".3f"):
         lo, hi, note = self.ranges[key]
         value = 1.0 if key == "coupling_scale" else 0.0
         value = min(max(value, lo), hi)
+        # continuous_update: the readout and diagram follow the drag (a predict costs a few ms)
         s = w.FloatSlider(value=value, min=lo, max=hi, step=step, description=description, readout_format=fmt,
                           continuous_update=True, style={"description_width": "150px"},
                           layout=w.Layout(width="400px"))
@@ -158,9 +216,9 @@ class LevelExplorer:
                                style={"description_width": "150px"}, layout=w.Layout(width="400px"))
         self.amplitude = self._slider("distortion", "mode amplitude (Å)", 0.01)
         self.amplitude.disabled = not modes
-        self.coupling = self._slider("coupling_scale", "coupling scale", 0.01)
+        self.coupling = self._slider("coupling_scale", "coupling scale (×)", 0.01)
         self.onsite = self._slider("onsite_shift", "on-site offset (eV)", 0.02)
-        options = ["(as fitted)"]
+        options = [AS_FITTED]
         cands = _swap_candidates(self.first_elements) if swaps is None else list(swaps)
         pairs = [(old, new) for old in self.first_elements for new in cands]
         if swaps is None:  # offer only swaps the fitted model can evaluate (term values in its source)
@@ -170,13 +228,28 @@ class LevelExplorer:
                                layout=w.Layout(width="400px"))
         self.readout = w.HTML()
         self.notes = w.HTML()
-        limits = "<br>".join(f"<b>{k}</b>: [{lo:.3g}, {hi:.3g}] — {note}" for k, (lo, hi, note) in self.ranges.items())
+        self.mode_note = w.HTML()
+        self.caution = w.HTML()
+        limits = "<br>".join(f"<b>{k}</b>: [{lo:.3g}, {hi:.3g}] — {esc(note)}"
+                             for k, (lo, hi, note) in self.ranges.items())
         self.limits = w.HTML(f'<details><summary>validated ranges</summary><small>{limits}</small></details>')
+        self._holding = False
         for c in (self.breathing, self.mode, self.amplitude, self.coupling, self.onsite, self.swap):
             c.observe(self._on_change, names="value")
-        controls = w.VBox([self.breathing, self.mode, self.amplitude, self.coupling, self.onsite, self.swap,
-                           self.readout, self.notes, self.limits], layout=w.Layout(width="430px"))
-        self.widget = w.HBox([bokeh_pane(self.figure), controls])
+        controls = w.VBox([self.breathing, self.mode, self.amplitude, self.mode_note, self.coupling, self.onsite,
+                           self.swap, self.readout, self.caution, self.notes, self.limits],
+                          layout=w.Layout(width="410px", min_width="410px"))
+        self.widget = w.HBox([bokeh_pane(self.figure), controls], layout=w.Layout(flex_flow="row wrap"))
+        self.widget.add_class("orbtool-levels")
+
+    # --------------------------------------------------------------- state
+    @property
+    def state(self) -> Knobs:
+        """The current :class:`Knobs` (what every view of the panel shows)."""
+        mode = self.mode.value if not self.amplitude.disabled else None
+        return Knobs(breathing=float(self.breathing.value), mode=mode, amplitude=float(self.amplitude.value),
+                     coupling_scale=float(self.coupling.value), onsite_shift=float(self.onsite.value),
+                     swap=self.swap.value)
 
     # --------------------------------------------------------------- model
     def _geometry(self):
@@ -185,11 +258,12 @@ class LevelExplorer:
         are added (both are small, linear patterns about the relaxed cell)."""
         if self.site is None:
             return None
+        k = self.state
         parts = []
-        if not self.breathing.disabled and abs(self.breathing.value) > 0:
-            parts.append(self.site.breathe(self.breathing.value))
-        if not self.amplitude.disabled and abs(self.amplitude.value) > 0:
-            parts.append(self.site.distort(self.mode.value, self.amplitude.value))
+        if not self.breathing.disabled and abs(k.breathing) > 0:
+            parts.append(self.site.breathe(k.breathing))
+        if k.mode is not None and abs(k.amplitude) > 0:
+            parts.append(self.site.distort(k.mode, k.amplitude))
         if len(parts) < 2:
             return parts[0] if parts else None
         base = self.site.defect
@@ -197,9 +271,9 @@ class LevelExplorer:
         geo.positions = base.positions + sum(p.positions - base.positions for p in parts)
         return geo
 
-    def _swap(self):
-        v = self.swap.value
-        if v == "(as fitted)":
+    def _swap(self, v=None):
+        v = self.swap.value if v is None else v
+        if v == AS_FITTED:
             return None
         old, new = (s.strip() for s in v.split("→"))
         return {old: new}
@@ -220,39 +294,59 @@ class LevelExplorer:
         return None if e is None else e + onsite_shift
 
     def set(self, **knobs) -> list[str]:
-        """Set knobs programmatically (``breathing``, ``amplitude``,
-        ``coupling_scale``, ``onsite_shift``); values outside the validated
-        range are clamped and the clamping is reported in the widget.
-        Returns the clamp notes."""
+        """Set knobs programmatically, before or after the panel is shown.
+
+        Keys are the fields of :class:`Knobs` (``breathing``, ``mode``,
+        ``amplitude``, ``coupling_scale``, ``onsite_shift``, ``swap``).
+        Values outside the validated range are clamped and the clamping is
+        reported in the widget; all knobs are applied first and the views
+        are redrawn once. Returns the clamp notes.
+        """
         sliders = {"breathing": self.breathing, "amplitude": self.amplitude, "coupling_scale": self.coupling,
                    "onsite_shift": self.onsite}
-        notes = []
+        choices = {"mode": self.mode, "swap": self.swap}
+        for k in knobs:
+            if k not in sliders and k not in choices:
+                raise KeyError(f"unknown knob {k!r}; expected one of {sorted(sliders) + sorted(choices)}")
         for k, v in knobs.items():
-            if k not in sliders:
-                raise KeyError(f"unknown knob {k!r}; expected one of {sorted(sliders)}")
-            s = sliders[k]
-            c = min(max(float(v), s.min), s.max)
-            if c != float(v):
-                notes.append(f"{k} = {v:g} is outside the validated range [{s.min:.3g}, {s.max:.3g}]; "
-                             f"clamped to {c:.3g}")
-            s.value = c
+            if k in choices and v not in choices[k].options:
+                raise ValueError(f"{k} {v!r} is not offered; choose one of {list(choices[k].options)}")
+        notes = []
+        self._holding = True
+        try:
+            for k, v in knobs.items():
+                if k in choices:
+                    choices[k].value = v
+                    continue
+                s = sliders[k]
+                c = min(max(float(v), s.min), s.max)
+                if c != float(v):
+                    notes.append(f"{k} = {v:g} is outside the validated range [{s.min:.3g}, {s.max:.3g}]; "
+                                 f"clamped to {c:.3g}")
+                s.value = c
+        finally:
+            self._holding = False
         self._clamp_notes = notes
-        self._on_change(None)
+        self.update()
         return notes
 
     def update(self):
-        """Recompute from the current knobs; returns the Prediction (or None on error)."""
-        swap = self._swap()
+        """Redraw every view from :attr:`state`; returns the Prediction (or None on error)."""
+        k = self.state
+        swap = self._swap(k.swap)
         geo, err = attempt(self._geometry)
         pred = None
         if err is None:
-            pred, err = attempt(self._predict, geo, swap, self.coupling.value, self.onsite.value)
+            pred, err = attempt(self._predict, geo, swap, k.coupling_scale, k.onsite_shift)
+        self.mode_note.value = message_html(odd_mode_note(k.mode), "info") if odd_mode_note(k.mode) else ""
+        tox = toxic_swap_note(k.swap)
+        self.caution.value = message_html(tox, "warn") if tox else ""
         if err:
             self.notes.value = message_html(f"knobs not applied (previous result kept): {err}", "error")
             return None
         self.prediction = pred
-        data = level_diagram_data(pred, self._dangling_energy(swap, self.onsite.value), window=self.window,
-                                  coupling_scale=self.coupling.value)
+        data = level_diagram_data(pred, self._dangling_energy(swap, k.onsite_shift), window=self.window,
+                                  coupling_scale=k.coupling_scale)
         update_level_diagram(self.figure, data)
         self._show(pred)
         notes = getattr(self, "_clamp_notes", [])
@@ -261,7 +355,8 @@ class LevelExplorer:
         return pred
 
     def _on_change(self, change):
-        self.update()
+        if not self._holding:
+            self.update()
 
     def _show(self, p):
         gap = float(p.cbm) - float(p.vbm)
@@ -271,7 +366,7 @@ class LevelExplorer:
             '<table class="orbtool-readout" style="font-size:13px">'
             f'<tr><td>level above VBM</td><td class="orbtool-level"><b>{p.above_vbm:.3f} ± {p.sigma:.3f} eV</b>'
             f'</td></tr><tr><td>level below CBM</td><td>{p.below_cbm:.3f} eV</td></tr>'
-            f'<tr><td>verdict</td><td>{p.verdict}</td></tr>'
+            f'<tr><td>verdict</td><td>{esc(p.verdict)}</td></tr>'
             f'<tr><td>SRH rate</td><td>{srh}</td></tr></table>')
 
     def _ipython_display_(self):  # pragma: no cover - notebook only

@@ -88,13 +88,16 @@ class PDOSExplorer:
         self.host_pdos = host_pdos if defect_pdos is not None else None
         self.choices = channel_choices(self.defect_pdos, self.site)
         default = ["total"] + [k for k in self.choices if k.startswith("shell 1 (")][:1]
-        self.picker = w.SelectMultiple(options=list(self.choices), value=tuple(default), rows=12,
-                                       description="channels", layout=w.Layout(width="330px"))
+        # a scrolling list (rows shown, the rest by scrolling); ctrl/shift-click picks several
+        self.picker = w.SelectMultiple(options=list(self.choices), value=tuple(default), rows=10,
+                                       description="channels", style={"description_width": "70px"},
+                                       layout=w.Layout(width="400px", overflow="auto"))
+        self.picker.add_class("orbtool-channels")
         gap = context["gap"]
         top = gap if np.isfinite(gap) else 0.0
         self.window = w.FloatRangeSlider(value=(-1.0, top + 1.0), min=-8.0, max=top + 8.0, step=0.05,
-                                         description="moment window (eV)", style={"description_width": "130px"},
-                                         layout=w.Layout(width="330px"))
+                                         description="moment window (eV)", readout_format=".2f",
+                                         style={"description_width": "140px"}, layout=w.Layout(width="400px"))
         self.moments = w.HTML()
         self.notes = w.HTML(message_html("\n".join(context["notes"]), "warn") if context["notes"] else "")
         lines = self._lines()
@@ -104,7 +107,10 @@ class PDOSExplorer:
         self.picker.observe(self._on_change, names="value")
         self.window.observe(self._on_change, names="value")
         self._show_moments(lines)
-        self.widget = w.HBox([bokeh_pane(self.figure), w.VBox([self.picker, self.window, self.moments, self.notes])])
+        controls = w.VBox([self.picker, self.window, self.moments, self.notes],
+                          layout=w.Layout(width="410px", min_width="410px"))
+        self.widget = w.HBox([bokeh_pane(self.figure), controls], layout=w.Layout(flex_flow="row wrap"))
+        self.widget.add_class("orbtool-pdos")
 
     def _lines(self):
         picks = {k: self.choices[k] for k in self.picker.value}

@@ -10,7 +10,8 @@ Layout of the saved dict (``content["app"]`` of the session file, version
 :data:`STATE_VERSION`)::
 
     {"state_version": 1,
-     "source": {"path": text of the loader's path box, "origin": the data's own source path},
+     "source": {"path": text of the loader's path box, "origin": the data's own source path,
+                "host": text of the loader's host box, "sha256": content hash of the files read},
      "case": name of the case shown,
      "tab": index of the open tab,
      "levels": {"breathing", "mode", "amplitude", "coupling_scale", "onsite_shift", "swap"},
@@ -18,12 +19,18 @@ Layout of the saved dict (``content["app"]`` of the session file, version
      "structure": {"isovalue", "only_near", "radius"},
      "board": {"x", "y"}}
 
-and ``content["data"]`` holds the loaded object itself (DefectCase, Family,
-ProjectedDOS or Grid), so a restore works even when the folder has moved.
+``content["data"]`` is None when the data came from the user's files: the
+session then stores only the reference (path, host) and a SHA-256 of the
+files' content, and a restore reads them again (and says when they changed)
+— everything else is recomputed, so sessions stay small. Only data with no
+file behind it (built in memory, or an upload's temporary copy) is stored whole.
 """
 
 from __future__ import annotations
 
+import hashlib
+import os
+import tempfile
 from pathlib import Path
 
 import ipywidgets as w
@@ -50,7 +57,7 @@ def app_state(app) -> dict:
     """
     obj = app.loader.value
     out = {"state_version": STATE_VERSION,
-           "source": {"path": app.loader.path.value, "origin": _origin(obj)},
+           "source": {"path": app.loader.path.value, "origin": _origin(obj), "host": app.loader.host.value},
            "case": None if app.case is None else app.case.name,
            "tab": app.tabs.selected_index}
     le = app.levels
@@ -74,6 +81,47 @@ def _origin(obj):
     return None if src is None else str(src)
 
 
+def _files_of(obj, path=None) -> list[Path]:
+    """The user's files behind a loaded object (a file, a run folder's files,
+    or a family manifest plus its cases' folders)."""
+    roots = [Path(p) for p in ([path] if path else []) + [_origin(obj)] if p]
+    roots += [Path(c.source) for c in (obj if hasattr(obj, "cases") else []) if getattr(c, "source", None)]
+    out: list[Path] = []
+    for r in dict.fromkeys(roots):
+        if r.is_file():
+            out.append(r)
+        elif r.is_dir():
+            out += sorted(f for f in r.rglob("*") if f.is_file() and not f.name.startswith("."))
+    return out
+
+
+def content_hash(obj, host: str | None = None) -> str | None:
+    """SHA-256 over the names and bytes of the files behind ``obj`` (and the
+    host path), or None when nothing on disk stands behind it."""
+    files = _files_of(obj) + (_files_of(None, host) if host else [])
+    if not files:
+        return None
+    h = hashlib.sha256()
+    for f in files:
+        h.update(f.name.encode())
+        with open(f, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+    return h.hexdigest()
+
+
+def _kept_as_reference(loader) -> bool:
+    """True when the loader read the data itself from the user's files, so
+    the same call reads it again (not an object handed over in memory, not
+    an upload's temporary copy)."""
+    rf = getattr(loader, "read_from", None)
+    if not rf or loader.value is None or not Path(rf["path"]).exists():
+        return False
+    tmp = os.path.realpath(tempfile.gettempdir())
+    return not any(os.path.realpath(p).startswith(tmp) and "orbtool-upload-" in p
+                   for p in (rf["path"], rf.get("host") or "") if p)
+
+
 def _clamp(name, value, lo, hi, unit="") -> tuple[float, str | None]:
     v = float(value)
     c = min(max(v, lo), hi)
@@ -85,13 +133,15 @@ def _clamp(name, value, lo, hi, unit="") -> tuple[float, str | None]:
 def _choose(name, dropdown, value, notes):
     if value is None or dropdown.value == value:
         return
-    if value in dropdown.options:
+    offered = [o[1] if isinstance(o, tuple) else o for o in dropdown.options]  # (label, value) pairs too
+    if value in offered:
         dropdown.value = value
     else:
         notes.append(f"{name} {value!r} is not offered here; kept {dropdown.value!r}")
 
 
-_FIELDS = {"case": str, "tab": int, "source.path": str, "source.origin": str,
+_FIELDS = {"case": str, "tab": int, "source.path": str, "source.origin": str, "source.host": str,
+           "source.sha256": str, "source.name": str,
            "levels.breathing": float, "levels.amplitude": float, "levels.coupling_scale": float,
            "levels.onsite_shift": float, "levels.mode": str, "levels.swap": str,
            "pdos.channels": list, "pdos.window": tuple, "structure.isovalue": float, "structure.only_near": bool,
@@ -124,7 +174,7 @@ def check_state(state) -> None:
             raise SessionError(f"app state field '{key}' is {node!r}; expected {expected}")
 
 
-def apply_state(app, state: dict, data=None) -> list[str]:
+def apply_state(app, state: dict, data=None, progress=None) -> list[str]:
     """Set ``app`` to a saved :func:`app_state`.
 
     Parameters
@@ -136,6 +186,8 @@ def apply_state(app, state: dict, data=None) -> list[str]:
         The saved data object; when None the data is read again from the
         saved path (``state["source"]``). When it is the object already
         shown, nothing is reloaded.
+    progress : callable(str, int), optional
+        Told each step (text, step 1–3) so a long restore shows where it is.
 
     Returns
     -------
@@ -150,6 +202,7 @@ def apply_state(app, state: dict, data=None) -> list[str]:
         its data cannot be obtained.
     """
     check_state(state)
+    progress = progress or (lambda text, step: None)
     from ..case import DefectCase, Family
     from ..grid import Grid
     from ..spectra import ProjectedDOS
@@ -159,25 +212,36 @@ def apply_state(app, state: dict, data=None) -> list[str]:
                            "ProjectedDOS or Grid")
     notes: list[str] = []
     src = state.get("source") or {}
+    read_from = None
     if data is None:
-        where = src.get("origin") or src.get("path")
+        # a reference session (with a content hash) names what the loader read; older ones the data's origin
+        where = (src.get("path") or src.get("origin")) if src.get("sha256") else (src.get("origin") or src.get("path"))
         if not where:
             raise SessionError("the session holds neither the data nor a path to read it from")
         from .loader import load_any
 
-        data, err = attempt(load_any, where)
+        progress("reading the files again", 1)
+        data, err = attempt(load_any, where, src.get("host") or None, name=src.get("name"))
+        read_from = {"path": where, "host": src.get("host") or "", "name": src.get("name")}
         if err:
             raise SessionError(f"the session's data could not be read again from {where}: {err}")
         notes.append(f"data read again from {where}")
+        saved_hash = src.get("sha256")
+        if saved_hash and content_hash(data, src.get("host") or None) != saved_hash:
+            notes.append(f"the files under {where} changed since the session was saved (content hash differs); "
+                         "the analysis shown is of the files as they are now")
     if data is not app.loader.value:
+        progress("analysing and drawing", 2)
         app._loaded(data)
-        app.loader.value = data
+        app.loader.value, app.loader.read_from = data, read_from
         app.loader.path.value = src.get("path") or ""
+        app.loader.host.value = src.get("host") or ""
         origin = src.get("origin")
         moved = "" if origin is None or Path(origin).exists() else " (that path no longer exists)"
         app.loader.status.value = message_html(f"restored {type(data).__name__} "
                                                f"{getattr(data, 'name', '') or ''} from the session; "
                                                f"originally read from {origin or 'memory'}{moved}")
+    progress("setting the knobs", 3)
     _set_case(app, state.get("case"), notes)
     _set_levels(app.levels, state.get("levels"), notes)
     _set_pdos(app.pdos, state.get("pdos"), notes)
@@ -246,12 +310,13 @@ def _set_structure(sv, saved, notes):
     if sv is None:
         notes.append("structure settings not applied: no structure view")
         return
+    knobs = {}
     if saved.get("radius") is not None:
         r, n = _clamp("R", saved["radius"], sv.radius.min, sv.radius.max, " Å")
         notes += [n] if n else []
-        sv.radius.value = r
+        knobs["radius"] = r
     if saved.get("only_near") is not None and not sv.only_near.disabled:
-        sv.only_near.value = bool(saved["only_near"])
+        knobs["only_near"] = bool(saved["only_near"])
     iso = saved.get("isovalue")
     if iso is not None:
         s = sv.isovalue
@@ -260,7 +325,8 @@ def _set_structure(sv, saved, notes):
         else:
             v, n = _clamp("isovalue", iso, s.base ** s.min, s.base ** s.max)
             notes += [n] if n else []
-            s.value = v
+            knobs["isovalue"] = v
+    sv.set(**knobs)  # a view not yet loaded in the browser is rebuilt at these values (no stale isosurface)
 
 
 # ---------------------------------------------------------------------------------------------- files
@@ -270,11 +336,20 @@ def save_app(app, path, *, overwrite: bool = False) -> Path:
     not an orbtool session unless ``overwrite``)."""
     from ..session import save_session
 
-    return save_session(path, {"app": app_state(app), "data": app.loader.value}, overwrite=overwrite)
+    state, obj = app_state(app), app.loader.value
+    if _kept_as_reference(app.loader):
+        rf = app.loader.read_from
+        state["source"].update(path=rf["path"], host=rf["host"])
+        if rf.get("name"):
+            state["source"]["name"] = rf["name"]
+        state["source"]["sha256"] = content_hash(obj, rf["host"] or None)
+        obj = None  # read again from the user's files on restore (small session)
+    return save_session(path, {"app": state, "data": obj}, overwrite=overwrite)
 
 
-def restore_app(app, path) -> list[str]:
-    """Read session file ``path`` and apply it to ``app``; returns the notes.
+def restore_app(app, path, progress=None) -> list[str]:
+    """Read session file ``path`` and apply it to ``app``; returns the notes
+    (``progress(text, step)`` is told each step, see :func:`apply_state`).
 
     On any error the app is put back as it was and the error re-raised
     (as :class:`~orbtool.errors.SessionError` where it concerns the file).
@@ -291,7 +366,7 @@ def restore_app(app, path) -> list[str]:
         raise SessionError(f"{path}: {exc}") from None
     before, data_before = app_state(app), app.loader.value
     try:
-        return apply_state(app, state, content.get("data"))
+        return apply_state(app, state, content.get("data"), progress)
     except Exception as exc:
         if data_before is not None:  # put back what was shown (reloads only if the data was replaced)
             attempt(apply_state, app, before, data_before)
@@ -311,9 +386,11 @@ class SessionBar:
         self.restore_button = w.Button(description="Restore", icon="undo", tooltip="restore the analysis saved "
                                                                                    "in this file")
         self.status = w.HTML()
+        self.progress = w.IntProgress(value=0, min=0, max=4, layout=w.Layout(width="160px", visibility="hidden"))
         self.save_button.on_click(lambda _: self.save())
         self.restore_button.on_click(lambda _: self.restore())
-        self.widget = w.VBox([w.HBox([self.path, self.save_button, self.restore_button]), self.status])
+        self.widget = w.VBox([w.HBox([self.path, self.save_button, self.restore_button, self.progress]),
+                              self.status])
         self.widget.add_class("orbtool-session")
 
     def _target(self):
@@ -346,10 +423,20 @@ class SessionBar:
         target = self._target()
         if target is None:
             return None
+        self.progress.layout.visibility = "visible"
+        self.progress.bar_style = "info"
+
+        def step(text, k):
+            self.progress.value = k
+            self.status.value = message_html(f"restoring from {target.name}: {text} …")
+
+        step("reading the session file", 0)
         try:
-            notes, err = attempt(restore_app, self.app, target)
+            notes, err = attempt(restore_app, self.app, target, step)
         except Exception as exc:  # never a traceback in the widget: anything unforeseen becomes a message
             notes, err = None, f"{type(exc).__name__}: {exc}"
+        self.progress.value = 4
+        self.progress.bar_style = "danger" if err else "success"
         if err:
             self.status.value = message_html(f"not restored (current analysis kept): {err}", "error")
             return None

@@ -17,7 +17,7 @@ import ipywidgets as w
 import numpy as np
 
 from .. import style
-from ._common import message_html
+from ._common import esc, message_html
 
 __all__ = ["StructureView", "EnclosedFraction", "standard_frame", "centre_on_site"]
 
@@ -110,53 +110,105 @@ class StructureView:
     """
 
     def __init__(self, atoms, site=None, grid=None, *, radius: float = 6.0):
-        import nglview as nv
-
         self.atoms, self.site, self.grid = atoms, site, grid
         shown, grid_shown, self.site_position = centre_on_site(atoms, grid, site)
         self.std_atoms, self.Q = standard_frame(shown)
-        self.view = nv.NGLWidget()
-        self.view._set_size("520px", "440px")
-        self.view.add_component(nv.ASEStructure(self.std_atoms), default_representation=False)
         self.only_near = w.Checkbox(value=False, description="only atoms within R of the site", indent=False)
+        # R redraws the atoms (a round trip to the browser per step): update on release, not while dragging
         self.radius = w.FloatSlider(value=radius, min=2.0, max=15.0, step=0.5, description="R (Å)",
-                                    layout=w.Layout(width="320px"))
+                                    continuous_update=False, style={"description_width": "120px"},
+                                    layout=w.Layout(width="420px"))
+        self.colour_by = w.ToggleButtons(options=["element", "shell"], value="element", description="colour by",
+                                         style={"description_width": "120px", "button_width": "90px"})
         self.only_near.disabled = self.radius.disabled = site is None
-        self.only_near.observe(self._draw_atoms, names="value")
-        self.radius.observe(self._draw_atoms, names="value")
         self.status = w.HTML()
-        self._draw_atoms()
-        controls = [self.only_near, self.radius]
+        self.legend = w.HTML()
+        controls = [self.colour_by, self.only_near, self.radius]
         self.isovalue = None
+        self._cube = None
         if grid is not None:
             self.fraction = EnclosedFraction(grid)
             self._tmp = tempfile.mkdtemp(prefix="orbtool-view-")
-            path = self._write_cube(grid_shown)
-            self.view.add_component(path, default_representation=False)
+            self._cube = self._write_cube(grid_shown)
             # exponents on the slider's own grid, so the browser does not snap the value and echo it back
             top = np.floor(np.log10(self.fraction.max_value) * 50) / 50
             expo = top - 3 + np.round((np.log10(self.fraction.isovalue_for(0.6)) - top + 3) * 50) / 50
             iso = float(10 ** min(expo, top))
             self.isovalue = w.FloatLogSlider(value=iso, base=10, min=top - 3, max=top, step=0.02,
                                              description=f"isovalue ({grid.unit})", readout_format=".2e",
-                                             style={"description_width": "120px"}, layout=w.Layout(width="420px"))
+                                             continuous_update=False,
+                                             style={"description_width": "120px"}, layout=w.Layout(width="440px"))
+            self.isovalue.add_class("orbtool-isovalue")
             self.enclosed = w.HTML()
-            self._add_surfaces(iso)
             self.isovalue.observe(self._on_iso, names="value")
-            self._show_fraction(iso)
             controls += [self.isovalue, self.enclosed]
-        if site is not None:
-            # shapes are nglview components too: add the ghost after the cube so the cube stays component 1
+        for c in (self.only_near, self.radius, self.colour_by):
+            c.observe(self._draw_atoms, names="value")
+        controls += [self.status, self.legend]
+        self.view = self._build_view()
+        self.widget = w.HBox([self.view, w.VBox(controls, layout=w.Layout(width="460px", min_width="460px"))],
+                             layout=w.Layout(flex_flow="row wrap"))
+        self.widget.add_class("orbtool-structure")
+
+    # --------------------------------------------------------------- state
+    def _build_view(self):
+        """A new nglview widget drawn from the current control values.
+
+        Used at construction and whenever a control changes before the view
+        has loaded in the browser (e.g. a session restored into a fresh app):
+        nglview cannot address a component the browser has not loaded yet
+        (its "reprList" error), so the view is rebuilt from the state instead
+        of patched."""
+        import nglview as nv
+
+        view = nv.NGLWidget()
+        view._set_size("520px", "440px")
+        self.view = view
+        view.add_component(nv.ASEStructure(self.std_atoms), default_representation=False)
+        self._draw_atoms()
+        if self._cube is not None:
+            view.add_component(self._cube, default_representation=False)
+            self._add_surfaces(float(self.isovalue.value))
+            self._show_fraction(float(self.isovalue.value))
+        # the cell as 12 thin grey edges in one shape (NGL's unit-cell representation keeps its orange default)
+        cell = np.asarray(self.std_atoms.cell[:])
+        edges = []
+        for c in np.ndindex(2, 2, 2):
+            for k in range(3):
+                if c[k] == 0:
+                    a = np.asarray(c, float) @ cell
+                    edges.append(("cylinder", a.tolist(), (a + cell[k]).tolist(), _rgb(style.MUTED), 0.03))
+        view._add_shape(edges, name="cell")
+        if self.site is not None:
+            # shapes are nglview components too: add the ghost after the cube so the cube stays component 1;
+            # an opaque marker with a label, visible through the (translucent) isosurface
             pos = self.site_position @ self.Q.T
-            self.view.shape.add_sphere(pos.tolist(), _rgb(style.VACANCY_GHOST), 0.7, "vacant site")
-        self.view.center()
-        controls.append(self.status)
-        legend = (f'<small><span style="color:{style.SHELL_COLOURS[1]}">●</span> shell 1 '
-                  f'<span style="color:{style.SHELL_COLOURS[2]}">●</span> shell 2 '
-                  f'<span style="color:{style.VACANCY_GHOST}">●</span> vacant site '
-                  f'<span style="color:{style.LOBE_POSITIVE}">■</span> ψ&gt;0 '
-                  f'<span style="color:{style.LOBE_NEGATIVE}">■</span> ψ&lt;0</small>')
-        self.widget = w.HBox([self.view, w.VBox(controls + [w.HTML(legend)])])
+            view.shape.add_sphere(pos.tolist(), _rgb(style.VACANCY_GHOST), 0.45, "vacant site")
+            view.shape.add_text((pos + np.array([0.0, 0.0, 0.9])).tolist(), _rgb(style.INK), 2.5, "vacancy")
+        view.center()
+        return view
+
+    def _rebuild_if_not_loaded(self) -> bool:
+        """Rebuild the nglview widget when the browser has not loaded it yet;
+        True when rebuilt (nothing else to send)."""
+        if getattr(self.view, "loaded", False) or not hasattr(self, "widget"):
+            return False
+        # the old widget is only dropped, not closed: the browser may be half-way through drawing it, and
+        # closing its model under it makes nglview's front end address a component that is gone ("reprList")
+        self.widget.children = (self._build_view(),) + tuple(self.widget.children[1:])
+        return True
+
+    def set(self, *, isovalue=None, only_near=None, radius=None, colour_by=None):
+        """Set the controls by code (before or after display); the 3-D view follows."""
+        if radius is not None:
+            self.radius.value = min(max(float(radius), self.radius.min), self.radius.max)
+        if only_near is not None and not self.only_near.disabled:
+            self.only_near.value = bool(only_near)
+        if colour_by is not None:
+            self.colour_by.value = colour_by
+        if isovalue is not None and self.isovalue is not None:
+            s = self.isovalue
+            self.isovalue.value = min(max(float(isovalue), s.base ** s.min), s.base ** s.max)
 
     # --------------------------------------------------------------- atoms
     def _shell(self, k):
@@ -171,24 +223,52 @@ class StructureView:
         return [int(i) for i in np.flatnonzero(d[:, 0] <= self.radius.value)]
 
     def _draw_atoms(self, change=None):
+        if change is not None and self._rebuild_if_not_loaded():
+            return
         v = self.view
-        if change is not None:  # on first draw the component may still be loading in the browser
+        if change is not None:
             v.clear_representations(component=0)
         keep = self._near() if (self.only_near.value and self.site is not None) else list(range(len(self.atoms)))
         s1, s2 = set(self._shell(1)), set(self._shell(2))
-        rest = [i for i in keep if i not in s1 and i not in s2]
+        symbols = self.atoms.get_chemical_symbols()
 
         def sel(ix):
             return "@" + ",".join(map(str, ix)) if ix else "none"
 
-        v.add_representation("ball+stick", selection=sel(rest), color=style.SHELL_COLOURS["rest"], radius=0.12,
-                             component=0)
-        for ix, colour in ((sorted(s1 & set(keep)), style.SHELL_COLOURS[1]), (sorted(s2 & set(keep)),
-                                                                              style.SHELL_COLOURS[2])):
-            if ix:
-                v.add_representation("ball+stick", selection=sel(ix), color=colour, radius=0.22, component=0)
-        v.add_representation("unitcell", component=0, color=style.MUTED, colorValue=style.MUTED)
+        radius = {1: 0.3, 2: 0.22, "rest": 0.13}
+        by_shell = self.colour_by.value == "shell"
+        groups: dict = {}
+        for i in keep:
+            shell = 1 if i in s1 else 2 if i in s2 else "rest"
+            colour = style.shell_colour(shell) if by_shell else style.element_colour(symbols[i])
+            groups.setdefault((shell, colour), []).append(i)
+        for (shell, colour), ix in groups.items():
+            v.add_representation("ball+stick", selection=sel(sorted(ix)), color=colour, radius=radius[shell],
+                                 component=0)
         self.status.value = message_html(f"{len(keep)} of {len(self.atoms)} atoms shown", "info")
+        self._show_legend(sorted({symbols[i] for i in keep}))
+
+    def _show_legend(self, elements):
+        sw = '<span style="color:{c};font-size:15px">●</span> {t}'
+        if self.colour_by.value == "shell":
+            items = [sw.format(c=style.shell_colour(1), t="shell 1"), sw.format(c=style.shell_colour(2), t="shell 2"),
+                     sw.format(c=style.shell_colour("rest"), t="other atoms")]
+        else:
+            items = [sw.format(c=style.element_colour(e), t=esc(e)) for e in elements]
+            if self.site is not None:
+                items.append("larger balls: shell 1, shell 2")
+        if self.site is not None:
+            items.append(sw.format(c=style.VACANCY_GHOST, t="vacant site"))
+        if self.grid is not None:
+            if self.grid.unit == "Å^-3/2":
+                items += [f'<span style="color:{style.LOBE_POSITIVE}">■</span> ψ &gt; 0',
+                          f'<span style="color:{style.LOBE_NEGATIVE}">■</span> ψ &lt; 0']
+            else:
+                items.append(f'<span style="color:{style.LOBE_POSITIVE}">■</span> density '
+                             f'({esc(self.grid.unit)}) above the isovalue')
+        items.append(f'<span style="color:{style.MUTED}">□</span> cell')
+        self.legend.value = '<div class="orbtool-legend" style="font-size:12px;line-height:1.6">' + \
+            " &nbsp; ".join(items) + "</div>"
 
     # ---------------------------------------------------------- isosurface
     def _write_cube(self, grid) -> str:
@@ -207,15 +287,17 @@ class StructureView:
     def _add_surfaces(self, iso):
         v = self.view
         v.add_representation("surface", component=1, isolevelType="value", isolevel=float(iso),
-                             color=style.LOBE_POSITIVE, opacity=0.6)
+                             color=style.LOBE_POSITIVE, opacity=0.45)
         if self.fraction.signed:
             v.add_representation("surface", component=1, isolevelType="value", isolevel=float(iso),
-                                 negateIsolevel=True, color=style.LOBE_NEGATIVE, opacity=0.6)
+                                 negateIsolevel=True, color=style.LOBE_NEGATIVE, opacity=0.45)
 
     def _on_iso(self, change):
         iso = float(change["new"])
         old = float(change["old"])
         if old > 0 and abs(np.log10(iso / old)) < 0.005:  # a rounding echo from the browser, not a move
+            return
+        if self._rebuild_if_not_loaded():
             return
         self.view.update_representation(component=1, repr_index=0, isolevel=iso)
         if self.fraction.signed:
@@ -223,8 +305,9 @@ class StructureView:
         self._show_fraction(iso)
 
     def _show_fraction(self, iso):
-        self.enclosed.value = (f'<span class="orbtool-enclosed">fraction of the state enclosed: '
-                               f'<b>{100 * self.fraction(iso):.1f} %</b></span>')
+        self.enclosed.value = (f'<div class="orbtool-enclosed" style="white-space:normal">isovalue '
+                               f'{iso:.3g} {esc(self.grid.unit)} encloses <b>{100 * self.fraction(iso):.1f} %</b> '
+                               'of the state</div>')
 
     def _ipython_display_(self):  # pragma: no cover - notebook only
         from IPython.display import display
