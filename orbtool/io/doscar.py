@@ -14,6 +14,7 @@ beside the file when one is there.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import numpy as np
@@ -43,6 +44,21 @@ def find_structure_beside(path):
                 except InputFormatError:
                     continue
     return None, None
+
+
+# Fortran writes double-precision exponents with D (1.0D-03) and drops the E when a three-digit
+# exponent does not fit the field (0.1234-100 means 0.1234E-100)
+_FORTRAN_D = re.compile(r"(?<=[0-9.])[dD](?=[+-]?[0-9])")
+_NO_E = re.compile(r"(?<=[0-9.])([+-][0-9]{2,3})(?=\s|$)", re.MULTILINE)
+
+
+def _fortran_exponents(lines: list[str], start: int) -> list[str]:
+    """``lines`` with Fortran exponent spellings from index ``start`` on rewritten as ``E``."""
+    text = "\n".join(lines[start:])
+    if not (_FORTRAN_D.search(text) or _NO_E.search(text)):
+        return lines
+    text = _NO_E.sub(r"E\1", _FORTRAN_D.sub("E", text))
+    return lines[:start] + text.split("\n")
 
 
 def _layout(ncol: int, spin: bool, path, line):
@@ -105,7 +121,7 @@ def read_doscar(path, atoms=None) -> ProjectedDOS:
     atoms : ase.Atoms, optional
         The structure, for element names; by default a CONTCAR/POSCAR beside the file.
     """
-    lines = read_text(path).splitlines()
+    lines = _fortran_exponents(read_text(path).splitlines(), 5)
     if len(lines) < 7:
         raise InputFormatError(path, len(lines) + 1 if lines else None,
                                "file ended inside the 6-line header (is this a DOSCAR?)")

@@ -11,10 +11,10 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputFormatError
+from ..errors import InputFormatError, warn
 from ..grid import Grid
 from ..spectra import ORBITAL_L, BandProjections, Channel, ProjectedDOS
-from ._files import read_text
+from ._files import check_memory, check_regular_file, read_text
 from ._numbers import table, to_float, to_int
 
 __all__ = ["read_npz", "write_npz", "read_pdos_text", "write_pdos_text", "read_projections_text",
@@ -124,13 +124,15 @@ def write_npz(path, obj) -> Path:
     return path
 
 
-def _check_npy_sizes(path) -> None:
+def _check_npy_sizes(path, max_bytes=None) -> None:
     """Refuse archive members whose ``.npy`` header declares more data than the member (or the whole
-    archive, allowing deflate's largest expansion) can hold, before numpy allocates the array."""
+    archive, allowing deflate's largest expansion) can hold, and archives whose declared content
+    exceeds the memory budget, before numpy allocates or decompresses anything."""
     import math
     import os
     limit = os.stat(path).st_size * 1500
     with zipfile.ZipFile(path) as z:
+        check_memory(path, sum(i.file_size for i in z.infolist()), "NPZ content", max_bytes=max_bytes)
         for info in z.infolist():
             if not info.filename.endswith(".npy"):
                 continue
@@ -149,10 +151,20 @@ def _check_npy_sizes(path) -> None:
                                        f"({need:,d} bytes) but holds {info.file_size:,d} bytes", field=info.filename)
 
 
-def read_npz(path, kind: str | None = None):
-    """Read an orbtool NPZ file; ``kind`` (``"grid"``, ``"pdos"``, ``"projections"``) is checked if given."""
+def _show(a: np.ndarray) -> str:
+    """Short description of a small array for a message."""
+    text = repr(a.tolist()) if a.size <= 4 else f"{a.size} values"
+    return f"{text} ({a.dtype}, shape {a.shape})"
+
+
+def read_npz(path, kind: str | None = None, max_bytes: int | None = None):
+    """Read an orbtool NPZ file; ``kind`` (``"grid"``, ``"pdos"``, ``"projections"``) is checked if given.
+
+    ``max_bytes`` is the memory budget for the archive's declared (uncompressed) content, bytes
+    (default ``$ORBTOOL_MAX_BYTES`` or 1 GiB); checked before anything is decompressed."""
+    check_regular_file(path)
     try:
-        _check_npy_sizes(path)
+        _check_npy_sizes(path, max_bytes)
         with np.load(path, allow_pickle=False) as npz:
             data = {k: npz[k] for k in npz.files}
     except InputFormatError:
@@ -161,8 +173,18 @@ def read_npz(path, kind: str | None = None):
         raise InputFormatError(path, None, f"not a readable NPZ archive ({exc})") from None
     if "orbtool_kind" not in data:
         raise InputFormatError(path, None, "NPZ archive was not written by orbtool (no 'orbtool_kind' entry)")
-    found = str(data["orbtool_kind"])
-    version = int(data.get("orbtool_version", 0))
+    found = data["orbtool_kind"]
+    if found.ndim != 0 or found.dtype.kind not in "US":
+        raise InputFormatError(path, None, f"'orbtool_kind' must be a single string, got {found.dtype} shape "
+                               f"{found.shape}", field="orbtool_kind")
+    found = str(found)
+    version = data.get("orbtool_version", np.array(0))
+    if version.ndim != 0 or version.dtype.kind not in "iu":
+        raise InputFormatError(path, None, f"'orbtool_version' must be a single integer, got "
+                               f"{_show(version)}", field="orbtool_version")
+    version = int(version)
+    if version < 0:
+        raise InputFormatError(path, None, f"'orbtool_version' must be ≥ 0, got {version}", field="orbtool_version")
     if version > NPZ_VERSION:
         raise InputFormatError(path, None, f"NPZ layout version {version} is newer than this orbtool "
                                f"understands ({NPZ_VERSION})")
@@ -259,6 +281,12 @@ def read_pdos_text(path) -> ProjectedDOS:
     labels = labels_s.split()
     if not labels or labels[0] != "energy":
         raise InputFormatError(path, ln, "the first column must be 'energy'", field="columns")
+    seen: dict[str, int] = {}
+    for j, lab in enumerate(labels):
+        if lab in seen:
+            raise InputFormatError(path, ln, f"column {j + 1} {lab!r} repeats column {seen[lab] + 1}; each "
+                                   "channel may appear once", field="columns")
+        seen[lab] = j
     total = {}
     chans, rows = [], []
     for j, lab in enumerate(labels[1:], start=1):
@@ -287,8 +315,53 @@ def read_pdos_text(path) -> ProjectedDOS:
             raise InputFormatError(path, ln, f"total columns {sorted(total)} do not match nspin={nspin}",
                                    field="columns")
         tot = data[:, [total[s] for s in range(nspin)]].T
+    _check_dos_signs(data, labels, path, first + 1)
+    meta = {"format": "orbtool-pdos"}
+    atoms = _structure_for_channels(path, labels, chans, rows, ln, meta)
     return ProjectedDOS(energies=data[:, 0], values=data[:, rows].T, channels=tuple(chans), total=tot,
-                        fermi=fermi, nspin=nspin, source=str(path), meta={"format": "orbtool-pdos"})
+                        fermi=fermi, nspin=nspin, atoms=atoms, source=str(path), meta=meta)
+
+
+#: negative DOS beyond this fraction of a column's largest value is refused (small negative
+#: wiggles come from tetrahedron-method corrections and are kept — common practice)
+NEGATIVE_DOS_TOLERANCE = 0.01
+
+
+def _check_dos_signs(data, labels, path, first_line):
+    """A density of states is non-negative: refuse a column with values below
+    −NEGATIVE_DOS_TOLERANCE × its largest magnitude, naming the column and the line."""
+    for j in range(1, data.shape[1]):
+        col = data[:, j]
+        scale = float(np.abs(col).max()) if col.size else 0.0
+        bad = np.flatnonzero(col < -NEGATIVE_DOS_TOLERANCE * scale)
+        if bad.size:
+            r = int(bad[0])
+            raise InputFormatError(path, first_line + r, f"column {j + 1} {labels[j]!r} has {bad.size} negative "
+                                   f"value(s) (first {col[r]:.6g}); a density of states is non-negative",
+                                   field=labels[j])
+
+
+def _structure_for_channels(path, labels, chans, rows, line, meta):
+    """The structure beside the file (CONTCAR/POSCAR), checked against the channels: an atom index
+    outside the cell is an error naming the column; an element that disagrees is a warning."""
+    from .doscar import find_structure_beside
+    atoms, found = find_structure_beside(path)
+    if atoms is None:
+        return None
+    symbols = atoms.get_chemical_symbols()
+    meta["structure"] = f"atoms from {found.name}"
+    for c, j in zip(chans, rows):
+        if c.atom >= len(atoms):
+            raise InputFormatError(path, line, f"column {j + 1} {labels[j]!r} names atom {c.atom}, but "
+                                   f"{found.name} beside the file has {len(atoms)} atoms (0..{len(atoms) - 1})",
+                                   field=labels[j])
+    wrong = [(j, c) for c, j in zip(chans, rows) if c.atom >= 0 and c.element != "X" and c.element != symbols[c.atom]]
+    if wrong:
+        j, c = wrong[0]
+        warn(f"{path}: column {j + 1} {labels[j]!r} says atom {c.atom} is {c.element}, but {found.name} has "
+             f"{symbols[c.atom]} there ({len(wrong)} such column(s)); check that the PDOS belongs to this "
+             "structure", meta)
+    return atoms
 
 
 def write_projections_text(path, proj: BandProjections) -> Path:
@@ -376,6 +449,11 @@ def read_projections_text(path) -> BandProjections:
     occ = data[:, 5].reshape(shape)[..., 0] if has_occ else None
     w = data[:, 6 if has_occ else 5:].reshape(shape + (len(orbitals),))
     meta = {"format": "orbtool-projections"}
+    if not np.any(w):
+        raise InputFormatError(path, first + 1, "every projection weight is zero: the file holds no projections, "
+                               "so no state character can be read", field="weights")
+    from .._validate import occupation_warning
+    occupation_warning(occ, ns, path, meta)
     if "elements" in head:
         meta["elements"] = head["elements"][0].split()
     return BandProjections(kpoints=kp, kweights=kw, energies=e[..., 0], occupations=occ, weights=w,

@@ -29,6 +29,7 @@ import numpy as np
 
 from ..errors import InputFormatError
 from ..spectra import BandProjections
+from .._validate import occupation_warning
 from ._files import read_text
 from ._numbers import floats, table, to_float
 
@@ -85,6 +86,12 @@ def read_procar(path, atoms=None) -> BandProjections:
     weights = np.stack([s[4] for s in spins])
     if not kw.sum() > 0:
         raise InputFormatError(path, None, "k-point weights sum to zero", field="k-point weight")
+    if not np.any(weights):
+        raise InputFormatError(path, None, "every projection weight is zero: the file holds no projections "
+                               "(was the projection switched off?), so no state character can be read",
+                               field="weights")
+    meta = {"format": "procar", "nspin": nspin}
+    occupation_warning(occ, nspin, path, meta)
     if atoms is None:
         from .doscar import find_structure_beside
         atoms, found = find_structure_beside(path)
@@ -92,7 +99,7 @@ def read_procar(path, atoms=None) -> BandProjections:
             atoms = None
     return BandProjections(kpoints=kp, kweights=kw, energies=energies, occupations=occ, weights=weights,
                            orbitals=tuple(_ORB[o] for o in orbitals), atoms=atoms, fermi=None, source=str(path),
-                           meta={"format": "procar", "nspin": nspin})
+                           meta=meta)
 
 
 def _read_careful(lines, path):
