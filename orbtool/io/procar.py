@@ -27,9 +27,9 @@ import re
 
 import numpy as np
 
+from .._validate import occupation_warning
 from ..errors import InputFormatError
 from ..spectra import BandProjections
-from .._validate import occupation_warning
 from ._files import read_text
 from ._numbers import floats, table, to_float
 
