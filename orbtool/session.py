@@ -347,7 +347,7 @@ def load_session(path, *, max_bytes: int | None = None) -> Any:
     except FileNotFoundError:
         raise SessionError(f"{path}: no such session file") from None
     except RecursionError:
-        raise SessionError(f"{path}: values nested too deeply (limit {MAX_DEPTH} levels)") from None
+        raise SessionError(f"{path}: values nested more than {MAX_DEPTH} levels deep") from None
     except (zipfile.BadZipFile, KeyError, ValueError, json.JSONDecodeError, OSError, EOFError, zlib.error,
             NotImplementedError, RuntimeError) as exc:
         # OSError: offsets pointing outside the file; NotImplementedError/RuntimeError: unknown
@@ -358,7 +358,7 @@ def load_session(path, *, max_bytes: int | None = None) -> Any:
     except SessionError as exc:
         raise SessionError(f"{path}: {exc}") from None
     except RecursionError:
-        raise SessionError(f"{path}: values nested too deeply (limit {MAX_DEPTH} levels)") from None
+        raise SessionError(f"{path}: values nested more than {MAX_DEPTH} levels deep") from None
     except (KeyError, IndexError, TypeError, AttributeError, ValueError) as exc:
         # a tree that names an array or field the archive lacks (or of the wrong shape)
         raise SessionError(f"{path}: damaged session content ({type(exc).__name__}: {exc}); "

@@ -47,15 +47,18 @@ def _line_map(text: str):
     out = {("", 0): {"": 1}}
     counts: dict[str, int] = {}
     cur = ("", 0)
+    sub = ""
     for i, line in enumerate(text.splitlines(), start=1):
         m = _HEADER.match(line)
         if m:
             name = m.group(2)
+            sub = ""
             if m.group(1) == "[[":
                 counts[name] = counts.get(name, -1) + 1
                 cur = (name, counts[name])
             elif "." in name and name.split(".")[0] in counts:
                 cur = (name.split(".")[0], counts[name.split(".")[0]])  # e.g. [case.labels]
+                sub = name.split(".", 1)[1]
                 out.setdefault(cur, {"": i})
                 continue
             else:
@@ -65,6 +68,8 @@ def _line_map(text: str):
         k = _KEY.match(line)
         if k:
             out.setdefault(cur, {"": i}).setdefault(k.group(2), i)
+            if sub:  # keys of a sub-table also under "<sub>.<key>" (e.g. "labels.name")
+                out[cur].setdefault(f"{sub}.{k.group(2)}", i)
     return out
 
 
@@ -215,14 +220,15 @@ def _check_case_values(c, i, at, problems):
         problems.append((at("case", i, "labels"), "labels must be a table"))
     elif "labels" in c:
         for k, v in c["labels"].items():
+            line = at("case", i, f"labels.{k}")
             if k in _RESERVED_LABELS:
-                problems.append((at("case", i, k), f"[case.labels] {k!r} of case {name!r} would hide the case's "
+                problems.append((line, f"[case.labels] {k!r} of case {name!r} would hide the case's "
                                  f"own {k}; set {k} in the [[case]] table itself, or use another label name"))
             elif k in c and k in LABEL_KEYS:
-                problems.append((at("case", i, k), f"label {k!r} of case {name!r} is given twice (in [[case]] "
+                problems.append((line, f"label {k!r} of case {name!r} is given twice (in [[case]] "
                                  "and in [case.labels]); keep one"))
             elif not _label_ok(v):
-                problems.append((at("case", i, k), f"[case.labels] {k!r} of case {name!r} must be a string or a "
+                problems.append((line, f"[case.labels] {k!r} of case {name!r} must be a string or a "
                                  f"finite number, got {type(v).__name__} {v!r}"))
 
 
