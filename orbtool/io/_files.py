@@ -156,7 +156,10 @@ def file_size(path) -> int:
 
 
 def read_head(path, nbytes: int = 8192) -> bytes:
-    """The first ``nbytes`` of the (decompressed) content; b"" if unreadable."""
+    """The first ``nbytes`` of the (decompressed) content; b"" if unreadable. A FIFO or a device
+    raises :class:`InputFormatError` (reading its head would block or never mean anything)."""
+    if os.path.exists(path) and not os.path.isdir(path):
+        check_regular_file(path)
     try:
         with open_binary(path) as fh:
             return fh.read(nbytes)
