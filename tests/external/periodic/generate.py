@@ -32,8 +32,10 @@ What each case folder holds (all formats orbtool reads, written the way a user w
 * ``potential.cube.gz`` (hosts and ideal anion vacancies) — GPAW's electrostatic potential
   (eV, potential energy of an electron), every second point of the density grid, by ASE's writer;
 * ``engine.json`` — engine and versions, recipe, wall times, total energy, Fermi level,
-  eigenvalues near the gap, the state the engine's own projector analysis calls the defect state
-  (bands, energies, occupations, first-shell share), GPAW's own per-atom electrostatic potentials.
+  eigenvalues near the gap, the state the engine's own grid analysis calls the defect state
+  (engine band numbers, 1-based; energies; occupations; share of |ψ̃|² within the first-shell distance
+  of the vacant site, on the grid — independent of the projections), every band within E_F ± 3 eV with
+  that share and its first-shell projector weight, and GPAW's own per-atom electrostatic potentials.
 
 Hosts and lattice constants (Å): the experimental room-temperature values listed in
 shared REFERENCES ("from memory", to be checked against the CRC Handbook's table of lattice
@@ -75,6 +77,7 @@ CATION_VACANCY = ("ZnS", "NaCl", "CsCl")                  # one per structure ty
 
 RECIPE = dict(mode="pw", ecut_eV=300, setups="gpaw-data (Debian)", xc="PBE", kpts="Gamma only",
               smearing="Fermi-Dirac 0.05 eV", spin="paired", charge=0, nbands="occupied + 24",
+              convergence="GPAW defaults (energy 5e-4 eV/electron, density 1e-4) but eigenstates 1e-5 eV^2/electron",
               supercell="3x3x3 primitive cells", geometry="ideal positions, experimental lattice constant",
               projections="PAW projector weights, bound projectors, per atom and real spherical harmonic, "
                           "bands in [E_F-12, E_F+6] eV",
@@ -83,16 +86,20 @@ ORBITALS = ("s", "py", "pz", "px", "dxy", "dyz", "dz2", "dxz", "dx2-y2")   # GPA
 
 
 def case_list() -> list[str]:
-    """All cases, most important first (so a partial run is still useful)."""
-    first = [h for pair in PAIRS for h in pair]
-    cases = []
-    for h in first + ["CsCl"]:
-        cases += [f"{h}/host", f"{h}/V_{HOSTS[h][2]}"]
+    """All cases, most important first (a partial run is still useful): two complete cation-swap
+    pairs, the 8-fold site, the true band edges, one breathing series per structure type, then
+    the other two pairs, the other breathing series and the cation vacancies."""
+    def ideal(h):
+        return [f"{h}/host", f"{h}/V_{HOSTS[h][2]}"]
+
+    def breathing(h):
+        return [f"{h}/V_{HOSTS[h][2]}_r0.95", f"{h}/V_{HOSTS[h][2]}_r1.05"]
+    cases = ideal("ZnS") + ideal("CdS") + ideal("NaCl") + ideal("KCl") + ideal("CsCl")
     cases += [f"{h}/bands" for h in HOSTS]
-    for h in BREATHING:
-        cases += [f"{h}/V_{HOSTS[h][2]}_r0.95", f"{h}/V_{HOSTS[h][2]}_r1.05"]
-    for h in CATION_VACANCY:
-        cases.append(f"{h}/V_{HOSTS[h][1]}")
+    cases += breathing("ZnS") + breathing("NaCl") + breathing("CsCl")
+    cases += ideal("AlP") + ideal("GaP") + ideal("CaO") + ideal("SrO")
+    cases += breathing("AlP") + breathing("CaO")
+    cases += [f"{h}/V_{HOSTS[h][1]}" for h in CATION_VACANCY]
     return cases
 
 
@@ -136,13 +143,14 @@ def build(case: str):
 
 def _calc(txt, kpts=(1, 1, 1), **extra):
     from gpaw import GPAW, PW, FermiDirac
-    return GPAW(mode=PW(300), xc="PBE", kpts=kpts, occupations=FermiDirac(0.05), txt=txt, **extra)
+    return GPAW(mode=PW(300), xc="PBE", kpts=kpts, occupations=FermiDirac(0.05), txt=txt,
+                convergence={"eigenstates": 1e-5}, **extra)
 
 
 def projector_weights(calc):
     """w[n, atom, orbital] = Σ_j |<p_j^a|ψ_n>|² over the bound projectors j of each (l, m), at Γ."""
     kpt = calc.wfs.kpt_u[0]
-    P_ani = kpt.projections.collect() if hasattr(kpt.projections, "collect") else kpt.P_ani
+    P_ani = kpt.projections.toarraydict() if hasattr(kpt.projections, "toarraydict") else kpt.P_ani
     natoms = len(calc.wfs.setups)
     nb = calc.wfs.bd.nbands
     w = np.zeros((nb, natoms, len(ORBITALS)))
@@ -210,15 +218,31 @@ def _write_cube_gz(path, atoms, data):
     tmp.unlink()
 
 
-def defect_state(e, f, w, fermi, shell, window=(-3.0, 3.0), tol=1e-3):
-    """The multiplet near E_F with the largest projector share on the first shell (the engine's own analysis)."""
-    share = w[:, shell, :].sum(axis=(1, 2))
-    cand = np.where((e > fermi + window[0]) & (e < fermi + window[1]))[0]
-    best = int(cand[np.argmax(share[cand])])
-    bands = [int(n) for n in cand if abs(e[n] - e[best]) < tol]
-    return {"bands": bands, "energy": float(np.mean(e[bands])), "energies": [float(e[n]) for n in bands],
-            "occupation": float(np.sum(f[bands])), "first_shell_share": float(np.mean(share[bands])),
-            "note": "bands within 1 meV of the band of largest first-shell projector share within E_F +-3 eV"}
+def sphere_fractions(calc, atoms, site, radius, bands) -> dict[int, float]:
+    """Fraction of |ψ̃_n|² on the grid within ``radius`` (Å) of the vacant ``site`` (minimum image), per band."""
+    psi0 = calc.get_pseudo_wave_function(band=bands[0], kpt=0, spin=0, pad=True)
+    n = np.array(psi0.shape)
+    frac = np.stack(np.meshgrid(*[np.arange(k) / k for k in n], indexing="ij"), axis=-1).reshape(-1, 3)
+    d = frac - np.linalg.solve(atoms.cell.T, site)
+    d -= np.round(d)
+    mask = (np.linalg.norm(d @ atoms.cell.array, axis=1) < radius).reshape(n)
+    out = {}
+    for b in bands:
+        rho = np.abs(calc.get_pseudo_wave_function(band=b, kpt=0, spin=0, pad=True)) ** 2
+        out[int(b)] = float(rho[mask].sum() / rho.sum())
+    return out
+
+
+def defect_state(e, f, fractions, tol=1e-3):
+    """The engine-side defect state: the multiplet with the largest share of |ψ̃|² in the vacancy sphere."""
+    bands = sorted(fractions)
+    best = max(bands, key=lambda b: fractions[b])
+    members = [b for b in bands if abs(e[b] - e[best]) < tol]
+    return {"bands": [b + 1 for b in members], "energy": float(np.mean(e[members])), "energies": [float(e[b]) for b in members],
+            "occupation": float(np.sum(f[members])), "sphere_fraction": float(np.mean([fractions[b] for b in members])),
+            "note": "bands within 1 meV of the band whose pseudo wave function has the largest share within "
+                    "the first-shell distance of the vacant site, among the bands within E_F +-3 eV (grid, "
+                    "independent of the projections)"}
 
 
 def run_case(case: str, out: Path, cubes: bool = True) -> dict:
@@ -230,13 +254,20 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
     folder = out / case
     folder.mkdir(parents=True, exist_ok=True)
     t0 = time.time()
-    calc = _calc(str(folder / "gpaw.txt"))
-    calc.initialize(atoms)
-    nocc0 = int(np.ceil(calc.wfs.nvalence / 2))
-    calc = _calc(str(folder / "gpaw.txt"), nbands=nocc0 + 24)
+    start = out / case.rsplit("_r", 1)[0] / "gs.gpw"
+    if "_r" in case and start.exists():               # breathing: start from the ideal vacancy's ground state
+        from gpaw import GPAW
+        calc = GPAW(str(start), txt=str(folder / "gpaw.txt"))
+        info["started_from"] = "converged ideal vacancy (wave functions and density)"
+    else:
+        calc = _calc(str(folder / "gpaw.txt"))
+        calc.initialize(atoms)
+        nocc0 = int(np.ceil(calc.wfs.nvalence / 2))
+        calc = _calc(str(folder / "gpaw.txt"), nbands=nocc0 + 24)
     atoms.calc = calc
     energy = atoms.get_potential_energy()
     t_scf = time.time() - t0
+    scf_iterations = int(calc.scf.niter)
     e_all = calc.get_eigenvalues(kpt=0, spin=0)
     f_all = calc.get_occupation_numbers(kpt=0, spin=0)
     fermi = float(calc.get_fermi_level())
@@ -246,7 +277,7 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
     e, f, w = e_all[keep], f_all[keep], w_all[keep]
     record = {"case": case, "engine": "GPAW", "engine_version": gpaw.__version__, "ase_version": ase.__version__,
               "numpy_version": np.__version__, "recipe": RECIPE, "mpi_ranks": world.size, **info,
-              "natoms": len(atoms), "nvalence": float(calc.wfs.nvalence), "total_energy": float(energy),
+              "scf_iterations": scf_iterations, "natoms": len(atoms), "nvalence": float(calc.wfs.nvalence), "total_energy": float(energy),
               "fermi": fermi, "nbands_engine": len(e_all), "bands_written": [band0 + 1, int(keep[-1]) + 1],
               "electrons_below_window": float(f_all[:band0].sum())}
     nocc = int(round(calc.wfs.nvalence)) // 2
@@ -265,14 +296,21 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
         write_projections(folder / "projections.proj.txt.gz", atoms, e, f, w, fermi, band0)
         write_pdos(folder / "pdos.pdos.txt.gz", atoms, e, w, fermi)
     if "first_shell_defect_cell" in info:
-        st = defect_state(e_all, f_all, w_all, fermi, info["first_shell_defect_cell"])
+        window = [int(n) for n in np.where((e_all > fermi - 3.0) & (e_all < fermi + 3.0))[0]]
+        fr = sphere_fractions(calc, atoms, np.array(info["site"]), info["first_shell_distance"], window)
+        shell = info["first_shell_defect_cell"]
+        record["bands_near_fermi"] = [{"band": n + 1, "energy": float(e_all[n]), "occupation": float(f_all[n]),
+                                       "vacancy_sphere_fraction": fr[n],
+                                       "first_shell_projector_weight": float(w_all[n, shell].sum())}
+                                      for n in window]
+        st = defect_state(e_all, f_all, fr)
         record["defect_state"] = st
         ideal = "_r" not in case
         if cubes and ideal:
-            rho = sum(calc.get_pseudo_wave_function(band=n, kpt=0, spin=0, pad=True) ** 2 for n in st["bands"])
+            rho = sum(calc.get_pseudo_wave_function(band=n - 1, kpt=0, spin=0, pad=True) ** 2 for n in st["bands"])
             dv = atoms.get_volume() / rho.size
             record["state_cube"] = {"bands": st["bands"], "grid": list(rho.shape), "integral": float(rho.sum() * dv),
-                                    "quantity": "sum of |psi|^2 over the multiplet, 1/Angstrom^3 (pseudo)"}
+                                    "quantity": "sum of |psi|^2 over the multiplet, 1/Angstrom^3 (pseudo); bands 1-based"}
             if world.rank == 0:
                 _write_cube_gz(folder / "state.cube.gz", atoms, rho)
     if cubes and ("_r" not in case) and (case.endswith("/host") or f"/V_{HOSTS[info['host']][2]}" in case):
@@ -282,6 +320,8 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
                                     "mean": float(v.mean())}
         if world.rank == 0:
             _write_cube_gz(folder / "potential.cube.gz", atoms, v)
+    if "first_shell_defect_cell" in info and "_r" not in case:
+        calc.write(str(folder / "gs.gpw"))              # start for the breathing runs (not committed)
     record["wall_time_s"] = {"scf": round(t_scf, 1), "analysis_and_files": round(time.time() - t1, 1)}
     if world.rank == 0:
         (folder / "engine.json").write_text(json.dumps(record, indent=1) + "\n")
@@ -329,6 +369,24 @@ def run_bands(host: str, out: Path) -> dict:
     return rec
 
 
+def _claim(folder: Path) -> bool:
+    """Claim a case for this worker: an exclusive lock file holding the pid (a dead owner's claim is taken over)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    lock = folder / ".claimed"
+    try:
+        fd = os.open(lock, os.O_CREAT | os.O_EXCL | os.O_WRONLY)
+    except FileExistsError:
+        try:
+            os.kill(int(lock.read_text() or 0), 0)
+            return False                                  # its owner is still running
+        except (ValueError, ProcessLookupError, PermissionError):
+            lock.unlink(missing_ok=True)
+            return _claim(folder)
+    os.write(fd, str(os.getpid()).encode())
+    os.close(fd)
+    return True
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--only", nargs="*", help="cases such as NaCl/V_Cl or NaCl/bands (default: all)")
@@ -336,15 +394,24 @@ def main(argv=None) -> int:
     ap.add_argument("--no-cubes", action="store_true")
     ap.add_argument("--skip-done", action="store_true", help="skip cases whose engine.json exists")
     ap.add_argument("--list", action="store_true")
+    ap.add_argument("--queue", action="store_true",
+                    help="take the next unclaimed case in priority order (several workers share one list)")
+    ap.add_argument("--shard", default="0/1", help="I/N: run every N-th case starting at I (parallel workers)")
     args = ap.parse_args(argv)
     cases = case_list()
     if args.list:
         print("\n".join(cases))
         return 0
     todo = args.only or cases
+    if args.queue:
+        args.skip_done = True
+    i, n = (int(x) for x in args.shard.split("/"))
+    todo = todo[i::n]
     for case in todo:
         done = args.out / case / ("bands.json" if case.endswith("/bands") else "engine.json")
         if args.skip_done and done.exists():
+            continue
+        if args.queue and not _claim(args.out / case):
             continue
         t = time.time()
         if case.endswith("/bands"):
