@@ -11,9 +11,10 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputFormatError, warn
+from ..errors import InputFormatError
 from ..grid import Grid
 from ..spectra import ORBITAL_L, BandProjections, Channel, ProjectedDOS
+from ._checks import check_dos_signs, show_array, structure_for_channels
 from ._files import check_memory, check_regular_file, read_text
 from ._numbers import table, to_float, to_int
 
@@ -151,12 +152,6 @@ def _check_npy_sizes(path, max_bytes=None) -> None:
                                        f"({need:,d} bytes) but holds {info.file_size:,d} bytes", field=info.filename)
 
 
-def _show(a: np.ndarray) -> str:
-    """Short description of a small array for a message."""
-    text = repr(a.tolist()) if a.size <= 4 else f"{a.size} values"
-    return f"{text} ({a.dtype}, shape {a.shape})"
-
-
 def read_npz(path, kind: str | None = None, max_bytes: int | None = None):
     """Read an orbtool NPZ file; ``kind`` (``"grid"``, ``"pdos"``, ``"projections"``) is checked if given.
 
@@ -181,7 +176,7 @@ def read_npz(path, kind: str | None = None, max_bytes: int | None = None):
     version = data.get("orbtool_version", np.array(0))
     if version.ndim != 0 or version.dtype.kind not in "iu":
         raise InputFormatError(path, None, f"'orbtool_version' must be a single integer, got "
-                               f"{_show(version)}", field="orbtool_version")
+                               f"{show_array(version)}", field="orbtool_version")
     version = int(version)
     if version < 0:
         raise InputFormatError(path, None, f"'orbtool_version' must be ≥ 0, got {version}", field="orbtool_version")
@@ -315,53 +310,11 @@ def read_pdos_text(path) -> ProjectedDOS:
             raise InputFormatError(path, ln, f"total columns {sorted(total)} do not match nspin={nspin}",
                                    field="columns")
         tot = data[:, [total[s] for s in range(nspin)]].T
-    _check_dos_signs(data, labels, path, first + 1)
+    check_dos_signs(data, labels, path, first + 1)
     meta = {"format": "orbtool-pdos"}
-    atoms = _structure_for_channels(path, labels, chans, rows, ln, meta)
+    atoms = structure_for_channels(path, labels, chans, rows, ln, meta)
     return ProjectedDOS(energies=data[:, 0], values=data[:, rows].T, channels=tuple(chans), total=tot,
                         fermi=fermi, nspin=nspin, atoms=atoms, source=str(path), meta=meta)
-
-
-#: negative DOS beyond this fraction of a column's largest value is refused (small negative
-#: wiggles come from tetrahedron-method corrections and are kept — common practice)
-NEGATIVE_DOS_TOLERANCE = 0.01
-
-
-def _check_dos_signs(data, labels, path, first_line):
-    """A density of states is non-negative: refuse a column with values below
-    −NEGATIVE_DOS_TOLERANCE × its largest magnitude, naming the column and the line."""
-    for j in range(1, data.shape[1]):
-        col = data[:, j]
-        scale = float(np.abs(col).max()) if col.size else 0.0
-        bad = np.flatnonzero(col < -NEGATIVE_DOS_TOLERANCE * scale)
-        if bad.size:
-            r = int(bad[0])
-            raise InputFormatError(path, first_line + r, f"column {j + 1} {labels[j]!r} has {bad.size} negative "
-                                   f"value(s) (first {col[r]:.6g}); a density of states is non-negative",
-                                   field=labels[j])
-
-
-def _structure_for_channels(path, labels, chans, rows, line, meta):
-    """The structure beside the file (CONTCAR/POSCAR), checked against the channels: an atom index
-    outside the cell is an error naming the column; an element that disagrees is a warning."""
-    from .doscar import find_structure_beside
-    atoms, found = find_structure_beside(path)
-    if atoms is None:
-        return None
-    symbols = atoms.get_chemical_symbols()
-    meta["structure"] = f"atoms from {found.name}"
-    for c, j in zip(chans, rows):
-        if c.atom >= len(atoms):
-            raise InputFormatError(path, line, f"column {j + 1} {labels[j]!r} names atom {c.atom}, but "
-                                   f"{found.name} beside the file has {len(atoms)} atoms (0..{len(atoms) - 1})",
-                                   field=labels[j])
-    wrong = [(j, c) for c, j in zip(chans, rows) if c.atom >= 0 and c.element != "X" and c.element != symbols[c.atom]]
-    if wrong:
-        j, c = wrong[0]
-        warn(f"{path}: column {j + 1} {labels[j]!r} says atom {c.atom} is {c.element}, but {found.name} has "
-             f"{symbols[c.atom]} there ({len(wrong)} such column(s)); check that the PDOS belongs to this "
-             "structure", meta)
-    return atoms
 
 
 def write_projections_text(path, proj: BandProjections) -> Path:
