@@ -55,10 +55,8 @@ _NO_E = re.compile(r"(?<=[0-9.])([+-][0-9]{2,3})(?=\s|$)", re.MULTILINE)
 def _fortran_exponents(lines: list[str], start: int) -> list[str]:
     """``lines`` with Fortran exponent spellings from index ``start`` on rewritten as ``E``."""
     text = "\n".join(lines[start:])
-    if not (_FORTRAN_D.search(text) or _NO_E.search(text)):
-        return lines
-    text = _NO_E.sub(r"E\1", _FORTRAN_D.sub("E", text))
-    return lines[:start] + text.split("\n")
+    new = _NO_E.sub(r"E\1", _FORTRAN_D.sub("E", text))
+    return lines if new == text else lines[:start] + new.split("\n")
 
 
 def _layout(ncol: int, spin: bool, path, line):
@@ -121,7 +119,17 @@ def read_doscar(path, atoms=None) -> ProjectedDOS:
     atoms : ase.Atoms, optional
         The structure, for element names; by default a CONTCAR/POSCAR beside the file.
     """
-    lines = _fortran_exponents(read_text(path).splitlines(), 5)
+    lines = read_text(path).splitlines()
+    try:
+        return _parse(lines, path, atoms)
+    except InputFormatError:  # retry with Fortran exponent spellings rewritten (costs nothing otherwise)
+        fixed = _fortran_exponents(lines, 5)
+        if fixed is lines:
+            raise
+        return _parse(fixed, path, atoms)
+
+
+def _parse(lines, path, atoms) -> ProjectedDOS:
     if len(lines) < 7:
         raise InputFormatError(path, len(lines) + 1 if lines else None,
                                "file ended inside the 6-line header (is this a DOSCAR?)")
