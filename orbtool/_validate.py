@@ -45,3 +45,15 @@ def check_cell(cell, source=None, name: str = "cell") -> np.ndarray:
                                f"{name} must be right-handed with positive volume, got volume {vol:.6g} Å^3",
                                field=name)
     return cell
+
+
+def occupation_warning(occ, nspin: int, path, meta: dict) -> None:
+    """Warn when every band of a spin-paired run (``nspin`` 1) has occupation exactly 1.0: a
+    spin-paired band holds 0–2 electrons, so this points at a wrong spin setting or an edited file."""
+    from .errors import warn
+    if occ is None or nspin != 1:
+        return
+    occ = np.asarray(occ)
+    if occ.size > 1 and np.all(occ == 1.0):
+        warn(f"{path}: every band has occupation 1.0 in a spin-paired run (occupations there run 0 to 2): "
+             "check the spin setting of the run; filled and empty bands cannot be told apart", meta)

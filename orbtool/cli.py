@@ -57,6 +57,9 @@ def _inspect(args) -> int:
     path = Path(args.file)
     if not path.exists():
         raise OrbtoolError(f"{path}: no such file or folder")
+    if not path.is_dir():  # a FIFO or a device (/dev/zero) is refused before anything opens it
+        from .io._files import check_regular_file
+        check_regular_file(path)
     info: dict = {"file": str(path)}
     found = _what(path)
     if found is None:
@@ -122,19 +125,47 @@ def _inspect(args) -> int:
     return 0
 
 
+#: seconds to wait for a dask scheduler named by --scheduler before giving up
+SCHEDULER_TIMEOUT = 10
+
+
+def _connect(address: str):
+    """A dask Client for ``address``, or a clear OrbtoolError within SCHEDULER_TIMEOUT seconds."""
+    try:
+        from dask.distributed import Client
+    except ImportError:
+        raise OrbtoolError("--scheduler needs dask.distributed (pip install 'dask[distributed]')") from None
+    try:
+        return Client(address, timeout=SCHEDULER_TIMEOUT)
+    except (OSError, TimeoutError, ValueError, TypeError) as exc:
+        raise OrbtoolError(f"--scheduler {address!r}: cannot reach a dask scheduler within {SCHEDULER_TIMEOUT} s "
+                           f"({type(exc).__name__}: {exc}); check the address (tcp://host:port) and that the "
+                           "scheduler runs") from None
+
+
 def _analyze(args) -> int:
     from .pipeline import run_analysis
-    run_analysis(args.manifest, args.out, force=args.force, workers=args.workers, scheduler=args.scheduler,
-                 figures=not args.no_figures, quiet=args.quiet)
+    client = _connect(args.scheduler) if args.scheduler else None
+    try:
+        run_analysis(args.manifest, args.out, force=args.force, workers=args.workers, scheduler=client,
+                     figures=not args.no_figures, quiet=args.quiet)
+    finally:
+        if client is not None:
+            client.close()
     return 0
 
 
 def _fit(args) -> int:
     from .pipeline import run_fit
+    target = Path(args.json) if args.json else None
+    if target is not None and (target.is_dir() or not target.parent.is_dir()):  # before the slow part
+        what = "is a folder" if target.is_dir() else "is in a folder that does not exist"
+        raise OrbtoolError(f"--json {target}: {what}; give a file name such as fit.json")
     result = run_fit(args.manifest, workers=args.workers, quiet=args.quiet)
     print(result.summary())
-    if args.json:
-        Path(args.json).write_text(json.dumps(result.to_dict(), indent=1, default=float))
+    if target is not None:
+        from .outputs import atomic_write
+        atomic_write(target, json.dumps(result.to_dict(), indent=1, default=float))
     return 0
 
 

@@ -16,6 +16,7 @@ __all__ = [
     "FitError",
     "ModelError",
     "SessionError",
+    "OrbtoolWarning",
 ]
 
 
@@ -69,3 +70,17 @@ class ModelError(OrbtoolError, ValueError):
 
 class SessionError(OrbtoolError):
     """A session file that cannot be written or read (newer schema, damage)."""
+
+
+class OrbtoolWarning(UserWarning):
+    """Input that is readable but suspicious (an element that disagrees with the structure, an
+    all-zero density, occupations that do not fit the spin setting). Readers also record the text
+    under ``meta["warnings"]`` of the object they return."""
+
+
+def warn(message: str, meta: dict | None = None) -> None:
+    """Issue an :class:`OrbtoolWarning` and append ``message`` to ``meta["warnings"]`` (if given)."""
+    import warnings
+    if meta is not None:
+        meta.setdefault("warnings", []).append(message)
+    warnings.warn(message, OrbtoolWarning, stacklevel=3)

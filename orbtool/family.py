@@ -322,12 +322,19 @@ class FamilyAnalysis:
         return cols
 
     def to_csv(self) -> str:
-        """The table as CSV text (empty cells for missing values)."""
+        """The table as CSV text (empty cells for missing values).
+
+        Text cells (and column names) that start with ``=``, ``+``, ``-``, ``@``, a tab or a
+        carriage return get a leading apostrophe, so a spreadsheet shows them as text instead of
+        running them as formulas (OWASP, "CSV Injection"); numbers are written unchanged."""
+        def text(v):
+            return "'" + v if isinstance(v, str) and v[:1] in ("=", "+", "-", "@", "\t", "\r") else v
         buf = io.StringIO()
-        w = csv.DictWriter(buf, fieldnames=self.columns(), lineterminator="\n")
-        w.writeheader()
+        cols = self.columns()
+        w = csv.DictWriter(buf, fieldnames=cols, lineterminator="\n")
+        w.writerow({k: text(k) for k in cols})
         for row in self.table():
-            w.writerow({k: ("" if v is None else (repr(v) if isinstance(v, float) else v)) for k, v in row.items()})
+            w.writerow({k: "" if v is None else repr(v) if isinstance(v, float) else text(v) for k, v in row.items()})
         return buf.getvalue()
 
     def to_json(self) -> str:

@@ -34,9 +34,14 @@ import numpy as np
 from scipy.optimize import linear_sum_assignment
 from scipy.spatial import cKDTree
 
+from ..errors import GeometryError
 from .periodic import as_pbc, fractional, reduced_cell
 
-__all__ = ["SiteMatch", "match_sites"]
+__all__ = ["SiteMatch", "match_sites", "check_overlaps", "MIN_SEPARATION"]
+
+#: two atoms closer than this (Å) are one atom written twice, not a structure (the shortest bond in
+#: matter, H–H in H2, is 0.74 Å — CRC Handbook of Chemistry and Physics, "Bond lengths")
+MIN_SEPARATION = 0.5
 
 _BIG = 1.0e6
 _N_CANDIDATES = 8  # neighbour candidates per defect atom
@@ -120,6 +125,26 @@ class _Frame:
         idx = np.asarray(idx).reshape(len(points), k)
         vec = self.mic(points[:, None, :] - self.positions[idx])
         return idx, vec
+
+
+def check_overlaps(cell, positions, pbc, name: str, min_separation: float = MIN_SEPARATION) -> None:
+    """Raise :class:`GeometryError` when two atoms (periodic images included) are closer than
+    ``min_separation`` Å: overlapping atoms, such as an atom pasted twice into a structure file."""
+    positions = np.asarray(positions, float).reshape(-1, 3)
+    if len(positions) < 2:
+        return
+    frame = _Frame(cell, positions, pbc)
+    idx, vec = frame.candidates(positions, 2)
+    d = np.linalg.norm(vec, axis=2)
+    own = idx == np.arange(len(positions))[:, None]
+    d = np.where(own, np.inf, d)  # the atom itself (its own periodic images are a cell length away)
+    close = np.flatnonzero(d.min(axis=1) < min_separation)
+    if len(close):
+        i = int(close[0])
+        j = int(idx[i, np.argmin(d[i])])
+        raise GeometryError(f"{name}: atoms {i} and {j} are {d[i].min():.3f} Å apart (closer than "
+                            f"{min_separation} Å): overlapping atoms, an atom written twice? Fix the structure file "
+                            f"({len(close)} atom(s) affected)")
 
 
 def _score(frame, points, numbers, host_numbers, radius):
@@ -270,6 +295,8 @@ def match_sites(host_cell, host_positions, host_numbers, defect_cell, defect_pos
     xd = np.asarray(defect_positions, float).reshape(-1, 3)
     zh = np.asarray(host_numbers, int).reshape(-1)
     zd = np.asarray(defect_numbers, int).reshape(-1)
+    check_overlaps(hc, xh, pbc, "host")
+    check_overlaps(dc, xd, pbc, "defect")
     frame = _Frame(hc, xh, pbc)
     yd = fractional(dc, xd) @ hc  # defect atoms carried into the host frame by fractional coordinates
     forbid = np.asarray(list(forbid), dtype=int)

@@ -153,6 +153,11 @@ class VacancySite:
     symmetry_tolerance: float
     notes: tuple = ()
 
+    def __post_init__(self):
+        note = _strain_note(self.host, self.defect, self.shells[0] if self.shells else ())
+        if note and note not in self.notes:
+            object.__setattr__(self, "notes", tuple(self.notes) + (note,))
+
     # ------------------------------------------------------------------ shells
     @property
     def first_shell(self) -> tuple:
@@ -340,6 +345,35 @@ class VacancySite:
         for note in self.notes:
             lines.append(f"  note: {note}")
         return "\n".join(lines)
+
+
+#: relative cell difference (host vs defect) above which a note is added (0.1 %, common practice)
+STRAIN_NOTE_THRESHOLD = 1e-3
+
+
+def _strain_note(host, defect, first) -> str:
+    """A note when the defect cell is strained relative to the host cell: the first-shell
+    displacements then include the homogeneous strain, which is not relaxation around the vacancy."""
+    if host is None or defect is None:
+        return ""
+    hc, dc = np.asarray(host.get_cell().array, float), np.asarray(defect.get_cell().array, float)
+    try:
+        deform = np.linalg.solve(hc, dc)  # dc = hc @ deform: rows of hc are lattice vectors
+    except np.linalg.LinAlgError:
+        return ""
+    strain = 0.5 * (deform + deform.T) - np.eye(3)
+    size = float(np.abs(strain).max())
+    if size <= STRAIN_NOTE_THRESHOLD:
+        return ""
+    vol = float(abs(np.linalg.det(dc)) / abs(np.linalg.det(hc)) - 1.0)
+    part = ""
+    if first:
+        hv = np.array([nb.host_vector for nb in first]).reshape(-1, 3)
+        r0 = np.linalg.norm(hv, axis=1)
+        moved = float(np.mean(np.linalg.norm(hv @ deform, axis=1) - r0))
+        part = f"; the strain alone moves the first shell by {moved:+.3f} Å on average, part of the breathing shown"
+    return (f"the defect cell differs from the host cell (largest strain component {size:.2%}, volume {vol:+.2%}): "
+            f"displacements include this homogeneous strain, not only relaxation around the vacancy{part}")
 
 
 def _mic_dist(cell, pbc, vectors):

@@ -51,9 +51,13 @@ def save_figure(fig, base, formats=("svg", "pdf", "png"), dpi: int = 600) -> lis
 
     PNG is written at ``dpi`` (600 by default, the usual journal minimum
     for line art — common practice); PDF embeds TrueType fonts; SVG keeps
-    text as text.
+    text as text. Each file is written atomically (temporary file in the same
+    folder, then renamed), so a killed run never leaves a truncated figure
+    where a good one was.
     """
     import matplotlib.pyplot as plt
+
+    from ..outputs import atomic_write
 
     base = Path(base)
     base.parent.mkdir(parents=True, exist_ok=True)
@@ -63,6 +67,7 @@ def save_figure(fig, base, formats=("svg", "pdf", "png"), dpi: int = 600) -> lis
     with plt.rc_context({**FONT_EMBEDDING, "svg.hashsalt": "orbtool"}):
         for fmt in formats:
             p = base.with_suffix(f".{fmt}")
-            fig.savefig(p, dpi=dpi if fmt == "png" else None, metadata=meta.get(fmt))
+            atomic_write(p, lambda fh, fmt=fmt: fig.savefig(fh, format=fmt, dpi=dpi if fmt == "png" else None,
+                                                            metadata=meta.get(fmt)))
             out.append(p)
     return out

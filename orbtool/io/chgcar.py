@@ -19,10 +19,10 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputFormatError
+from ..errors import InputFormatError, warn
 from ..grid import Grid
 from ._bulk import HeaderReader, check_declared_size, next_line, progress_bar
-from ._files import compression_of, open_binary, strip_compression
+from ._files import check_memory, compression_of, open_binary, strip_compression
 from ._numbers import to_int
 
 __all__ = ["read_chgcar", "read_poscar_header"]
@@ -134,6 +134,7 @@ def read_chgcar(path, quantity: str = "auto", progress: bool = True) -> list[Gri
             reader = hr.values(bar)
             notes = []
             while True:
+                check_memory(path, (len(grids) + 1) * total * 8, "grid", hr.line)
                 out = np.empty(dims, order="F")  # the file's order: first index fastest
                 reader.fill(out.reshape(-1, order="F"), f"grid block {len(grids) + 1}")
                 grids.append(out)
@@ -157,6 +158,9 @@ def read_chgcar(path, quantity: str = "auto", progress: bool = True) -> list[Gri
             vals *= factor
         meta = {"format": "chgcar", "quantity": q, "quantity_reason": why, "divided_by_volume": factor != 1.0,
                 "cell_volume": volume, "notes": notes}
+        if name == "total" and not np.any(vals):
+            warn(f"{path}: every value of the {name} grid is zero (an empty band-decomposed density, or the "
+                 "wrong band or energy window?); nothing can be learned from it", meta)
         out.append(Grid(values=vals, cell=atoms.cell.array, origin=np.zeros(3), atoms=atoms, unit=unit,
                         source=str(path), name=name, pbc=True, meta=meta))
     return out

@@ -18,7 +18,7 @@ from ..errors import InputFormatError
 from ..grid import Grid
 from ..units import BOHR, HARTREE
 from ._bulk import HeaderReader, check_declared_size, progress_bar
-from ._files import compression_of, open_binary
+from ._files import check_memory, compression_of, open_binary
 from ._numbers import to_float, to_int
 
 __all__ = ["read_cube", "write_cube"]
@@ -139,6 +139,7 @@ def read_cube(path, quantity: str = "auto", progress: bool = True, units: str = 
             nper = nmo * nval
         total = counts[0] * counts[1] * counts[2] * nper
         check_declared_size(path, total, "grid", hr.line + 1, comp)
+        check_memory(path, total * 8, "grid", hr.line)  # memory budget from the declared counts (issue 18)
         flat = np.empty(total, dtype=np.float64)
         bar = progress_bar(path, progress, comp)
         try:

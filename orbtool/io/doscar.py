@@ -14,6 +14,7 @@ beside the file when one is there.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import numpy as np
@@ -43,6 +44,19 @@ def find_structure_beside(path):
                 except InputFormatError:
                     continue
     return None, None
+
+
+# Fortran writes double-precision exponents with D (1.0D-03) and drops the E when a three-digit
+# exponent does not fit the field (0.1234-100 means 0.1234E-100)
+_FORTRAN_D = re.compile(r"(?<=[0-9.])[dD](?=[+-]?[0-9])")
+_NO_E = re.compile(r"(?<=[0-9.])([+-][0-9]{2,3})(?=\s|$)", re.MULTILINE)
+
+
+def _fortran_exponents(lines: list[str], start: int) -> list[str]:
+    """``lines`` with Fortran exponent spellings from index ``start`` on rewritten as ``E``."""
+    text = "\n".join(lines[start:])
+    new = _NO_E.sub(r"E\1", _FORTRAN_D.sub("E", text))
+    return lines if new == text else lines[:start] + new.split("\n")
 
 
 def _layout(ncol: int, spin: bool, path, line):
@@ -106,6 +120,16 @@ def read_doscar(path, atoms=None) -> ProjectedDOS:
         The structure, for element names; by default a CONTCAR/POSCAR beside the file.
     """
     lines = read_text(path).splitlines()
+    try:
+        return _parse(lines, path, atoms)
+    except InputFormatError:  # retry with Fortran exponent spellings rewritten (costs nothing otherwise)
+        fixed = _fortran_exponents(lines, 5)
+        if fixed is lines:
+            raise
+        return _parse(fixed, path, atoms)
+
+
+def _parse(lines, path, atoms) -> ProjectedDOS:
     if len(lines) < 7:
         raise InputFormatError(path, len(lines) + 1 if lines else None,
                                "file ended inside the 6-line header (is this a DOSCAR?)")

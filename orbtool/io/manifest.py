@@ -6,12 +6,14 @@ its line number, so a user fixes the file in one pass.
 
 from __future__ import annotations
 
+import math
 import re
 import tomllib
 from pathlib import Path
 
 from ..case import Family
 from ..errors import InputFormatError
+from ._files import check_regular_file, read_bounded
 
 __all__ = ["load_family", "check_manifest", "LABEL_KEYS", "MAX_MANIFEST_BYTES", "MAX_NESTING", "MAX_TABLES"]
 
@@ -29,6 +31,11 @@ _TOP_KEYS = {"family", "references", "host", "case"}
 MAX_MANIFEST_BYTES = 1_000_000
 MAX_NESTING = 16
 MAX_TABLES = 5000
+#: largest |charge| accepted for one point defect (common practice: a defect's charge state stays
+#: within the valence of the atoms it removes or adds, at most a few electrons; 10 is a generous bound)
+MAX_ABS_CHARGE = 10
+#: keys of a [[case]] that a [case.labels] entry may not shadow
+_RESERVED_LABELS = {"name", "charge", "path", "host", "labels", "description"}
 
 _HEADER = re.compile(r"^\s*(\[\[?)\s*([A-Za-z0-9_.\-]+)\s*\]\]?")
 _KEY = re.compile(r'^\s*("?)([A-Za-z0-9_\-]+)\1\s*=')
@@ -42,15 +49,18 @@ def _line_map(text: str):
     out = {("", 0): {"": 1}}
     counts: dict[str, int] = {}
     cur = ("", 0)
+    sub = ""
     for i, line in enumerate(text.splitlines(), start=1):
         m = _HEADER.match(line)
         if m:
             name = m.group(2)
+            sub = ""
             if m.group(1) == "[[":
                 counts[name] = counts.get(name, -1) + 1
                 cur = (name, counts[name])
             elif "." in name and name.split(".")[0] in counts:
                 cur = (name.split(".")[0], counts[name.split(".")[0]])  # e.g. [case.labels]
+                sub = name.split(".", 1)[1]
                 out.setdefault(cur, {"": i})
                 continue
             else:
@@ -60,6 +70,8 @@ def _line_map(text: str):
         k = _KEY.match(line)
         if k:
             out.setdefault(cur, {"": i}).setdefault(k.group(2), i)
+            if sub:  # keys of a sub-table also under "<sub>.<key>" (e.g. "labels.name")
+                out[cur].setdefault(f"{sub}.{k.group(2)}", i)
     return out
 
 
@@ -80,11 +92,15 @@ def check_manifest(path):
     of (line, message)."""
     path = Path(path)
     try:
+        if not path.exists():
+            raise FileNotFoundError(path)
+        check_regular_file(path)  # a FIFO or a device (/dev/zero) is refused before opening
         size = path.stat().st_size
         if size > MAX_MANIFEST_BYTES:
             raise InputFormatError(path, None, f"manifest is {size:,d} bytes, larger than the limit of "
                                    f"{MAX_MANIFEST_BYTES:,d} (is this really a family manifest?)")
-        text = path.read_text(encoding="utf-8")
+        raw = read_bounded(path, MAX_MANIFEST_BYTES, "manifest")
+        text = raw.decode("utf-8").removeprefix("\ufeff")  # a UTF-8 byte-order mark is not TOML
     except FileNotFoundError:
         raise InputFormatError(path, None, "manifest does not exist") from None
     except (OSError, UnicodeDecodeError) as exc:
@@ -128,6 +144,8 @@ def check_manifest(path):
             problems.append((at("family", 0, k), f"[family] {k} must be a string"))
     if "references" in data and not isinstance(data["references"], dict):
         problems.append((at("", 0, "references"), "[references] must be a table"))
+    elif "references" in data:
+        _check_references(data["references"], at, problems)
     hosts = data.get("host", [])
     cases = data.get("case", [])
     if not isinstance(hosts, list) or not isinstance(cases, list):
@@ -179,13 +197,7 @@ def check_manifest(path):
         elif "host" in c and c["host"] not in host_names:
             problems.append((at("case", i, "host"), f"case {name!r} names host {c['host']!r}, which no [[host]] "
                              f"defines (hosts: {', '.join(host_names) or 'none'})"))
-        if "charge" in c and (not isinstance(c["charge"], int) or isinstance(c["charge"], bool)):
-            problems.append((at("case", i, "charge"), f"charge must be an integer, got {c['charge']!r}"))
-        for k in LABEL_KEYS:
-            if k in c and not isinstance(c[k], (str, int, float)):
-                problems.append((at("case", i, k), f"label {k!r} must be a string or number"))
-        if "labels" in c and not isinstance(c["labels"], dict):
-            problems.append((at("case", i, "labels"), "labels must be a table"))
+        _check_case_values(c, i, at, problems)
         _check_path(c.get("path"), base, "case", i, at, problems)
         _check_units(c, lambda: at("case", i, "units"), f"[[case]] #{i + 1}", problems)
     return data, problems, lines
@@ -194,6 +206,77 @@ def check_manifest(path):
 def _check_units(tab, line, where, problems):
     if "units" in tab and tab["units"] not in UNIT_CHOICES:
         problems.append((line(), f"units of {where} must be one of {', '.join(UNIT_CHOICES)}, got {tab['units']!r}"))
+
+
+def _label_ok(v) -> bool:
+    """A label is a string, an integer or a finite number (labels group and name cases)."""
+    if isinstance(v, bool):
+        return True
+    if isinstance(v, float):
+        return math.isfinite(v)
+    return isinstance(v, (str, int))
+
+
+def _check_case_values(c, i, at, problems):
+    """Types and ranges of a case's charge and labels (each problem with its line)."""
+    name = c.get("name")
+    if "charge" in c:
+        q = c["charge"]
+        if not isinstance(q, int) or isinstance(q, bool):
+            problems.append((at("case", i, "charge"), f"charge of case {name!r} must be an integer, got {q!r}"))
+        elif abs(q) > MAX_ABS_CHARGE:
+            shown = str(q) if len(str(q)) <= 12 else f"{str(q)[:6]}…({len(str(abs(q)))} digits)"
+            problems.append((at("case", i, "charge"), f"charge of case {name!r} is {shown}: a point defect's "
+                             f"charge state must lie within ±{MAX_ABS_CHARGE} electrons (a typo?)"))
+    for k in LABEL_KEYS:
+        if k in c and not _label_ok(c[k]):
+            problems.append((at("case", i, k), f"label {k!r} of case {name!r} must be a string or a finite "
+                             f"number, got {type(c[k]).__name__} {c[k]!r}"))
+    if "labels" in c and not isinstance(c["labels"], dict):
+        problems.append((at("case", i, "labels"), "labels must be a table"))
+    elif "labels" in c:
+        for k, v in c["labels"].items():
+            line = at("case", i, f"labels.{k}")
+            if k in _RESERVED_LABELS:
+                problems.append((line, f"[case.labels] {k!r} of case {name!r} would hide the case's "
+                                 f"own {k}; set {k} in the [[case]] table itself, or use another label name"))
+            elif k in c and k in LABEL_KEYS:
+                problems.append((line, f"label {k!r} of case {name!r} is given twice (in [[case]] "
+                                 "and in [case.labels]); keep one"))
+            elif not _label_ok(v):
+                problems.append((line, f"[case.labels] {k!r} of case {name!r} must be a string or a "
+                                 f"finite number, got {type(v).__name__} {v!r}"))
+
+
+def _check_references(refs, at, problems):
+    """``[references]``: ``mu`` a table element → finite chemical potential (eV/atom); ``dielectric``
+    a positive number, a 3×3 table of numbers, or a table of those keyed by label."""
+    from ase.data import chemical_symbols
+    if "mu" in refs:
+        mu, line = refs["mu"], at("references", 0, "mu")
+        if not isinstance(mu, dict):
+            problems.append((line, f"[references] mu must be a table of element = chemical potential in eV/atom "
+                             f"(e.g. mu = {{ Ga = -3.03 }}), got {type(mu).__name__} {mu!r}"))
+        else:
+            for el, v in mu.items():
+                if el not in chemical_symbols[1:]:
+                    problems.append((line, f"[references] mu: {el!r} is not an element symbol"))
+                elif isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+                    problems.append((line, f"[references] mu.{el} must be a finite number (eV/atom), got {v!r}"))
+    if "dielectric" in refs:
+        d, line = refs["dielectric"], at("references", 0, "dielectric")
+
+        def ok(x):
+            if isinstance(x, bool):
+                return False
+            if isinstance(x, (int, float)):
+                return math.isfinite(x) and x > 0
+            return (isinstance(x, list) and len(x) == 3 and all(isinstance(r, list) and len(r) == 3 for r in x)
+                    and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+                            for r in x for v in r))
+        if not (ok(d) or (isinstance(d, dict) and d and all(ok(v) for v in d.values()))):
+            problems.append((line, "[references] dielectric must be a positive number, a 3×3 array of numbers, or "
+                             f"a table of those keyed by a label value; got {d!r}"))
 
 
 def _required(tab, keys, kind, i, at, problems):

@@ -14,7 +14,8 @@ import numpy as np
 from ..errors import InputFormatError
 from ..grid import Grid
 from ..spectra import ORBITAL_L, BandProjections, Channel, ProjectedDOS
-from ._files import read_text
+from ._checks import check_dos_signs, show_array, structure_for_channels
+from ._files import check_memory, check_regular_file, read_text
 from ._numbers import table, to_float, to_int
 
 __all__ = ["read_npz", "write_npz", "read_pdos_text", "write_pdos_text", "read_projections_text",
@@ -124,13 +125,15 @@ def write_npz(path, obj) -> Path:
     return path
 
 
-def _check_npy_sizes(path) -> None:
+def _check_npy_sizes(path, max_bytes=None) -> None:
     """Refuse archive members whose ``.npy`` header declares more data than the member (or the whole
-    archive, allowing deflate's largest expansion) can hold, before numpy allocates the array."""
+    archive, allowing deflate's largest expansion) can hold, and archives whose declared content
+    exceeds the memory budget, before numpy allocates or decompresses anything."""
     import math
     import os
     limit = os.stat(path).st_size * 1500
     with zipfile.ZipFile(path) as z:
+        check_memory(path, sum(i.file_size for i in z.infolist()), "NPZ content", max_bytes=max_bytes)
         for info in z.infolist():
             if not info.filename.endswith(".npy"):
                 continue
@@ -149,10 +152,14 @@ def _check_npy_sizes(path) -> None:
                                        f"({need:,d} bytes) but holds {info.file_size:,d} bytes", field=info.filename)
 
 
-def read_npz(path, kind: str | None = None):
-    """Read an orbtool NPZ file; ``kind`` (``"grid"``, ``"pdos"``, ``"projections"``) is checked if given."""
+def read_npz(path, kind: str | None = None, max_bytes: int | None = None):
+    """Read an orbtool NPZ file; ``kind`` (``"grid"``, ``"pdos"``, ``"projections"``) is checked if given.
+
+    ``max_bytes`` is the memory budget for the archive's declared (uncompressed) content, bytes
+    (default ``$ORBTOOL_MAX_BYTES`` or 1 GiB); checked before anything is decompressed."""
+    check_regular_file(path)
     try:
-        _check_npy_sizes(path)
+        _check_npy_sizes(path, max_bytes)
         with np.load(path, allow_pickle=False) as npz:
             data = {k: npz[k] for k in npz.files}
     except InputFormatError:
@@ -161,8 +168,18 @@ def read_npz(path, kind: str | None = None):
         raise InputFormatError(path, None, f"not a readable NPZ archive ({exc})") from None
     if "orbtool_kind" not in data:
         raise InputFormatError(path, None, "NPZ archive was not written by orbtool (no 'orbtool_kind' entry)")
-    found = str(data["orbtool_kind"])
-    version = int(data.get("orbtool_version", 0))
+    found = data["orbtool_kind"]
+    if found.ndim != 0 or found.dtype.kind not in "US":
+        raise InputFormatError(path, None, f"'orbtool_kind' must be a single string, got {found.dtype} shape "
+                               f"{found.shape}", field="orbtool_kind")
+    found = str(found)
+    version = data.get("orbtool_version", np.array(0))
+    if version.ndim != 0 or version.dtype.kind not in "iu":
+        raise InputFormatError(path, None, f"'orbtool_version' must be a single integer, got "
+                               f"{show_array(version)}", field="orbtool_version")
+    version = int(version)
+    if version < 0:
+        raise InputFormatError(path, None, f"'orbtool_version' must be ≥ 0, got {version}", field="orbtool_version")
     if version > NPZ_VERSION:
         raise InputFormatError(path, None, f"NPZ layout version {version} is newer than this orbtool "
                                f"understands ({NPZ_VERSION})")
@@ -259,6 +276,12 @@ def read_pdos_text(path) -> ProjectedDOS:
     labels = labels_s.split()
     if not labels or labels[0] != "energy":
         raise InputFormatError(path, ln, "the first column must be 'energy'", field="columns")
+    seen: dict[str, int] = {}
+    for j, lab in enumerate(labels):
+        if lab in seen:
+            raise InputFormatError(path, ln, f"column {j + 1} {lab!r} repeats column {seen[lab] + 1}; each "
+                                   "channel may appear once", field="columns")
+        seen[lab] = j
     total = {}
     chans, rows = [], []
     for j, lab in enumerate(labels[1:], start=1):
@@ -287,8 +310,11 @@ def read_pdos_text(path) -> ProjectedDOS:
             raise InputFormatError(path, ln, f"total columns {sorted(total)} do not match nspin={nspin}",
                                    field="columns")
         tot = data[:, [total[s] for s in range(nspin)]].T
+    check_dos_signs(data, labels, path, first + 1)
+    meta = {"format": "orbtool-pdos"}
+    atoms = structure_for_channels(path, labels, chans, rows, ln, meta)
     return ProjectedDOS(energies=data[:, 0], values=data[:, rows].T, channels=tuple(chans), total=tot,
-                        fermi=fermi, nspin=nspin, source=str(path), meta={"format": "orbtool-pdos"})
+                        fermi=fermi, nspin=nspin, atoms=atoms, source=str(path), meta=meta)
 
 
 def write_projections_text(path, proj: BandProjections) -> Path:
@@ -376,6 +402,11 @@ def read_projections_text(path) -> BandProjections:
     occ = data[:, 5].reshape(shape)[..., 0] if has_occ else None
     w = data[:, 6 if has_occ else 5:].reshape(shape + (len(orbitals),))
     meta = {"format": "orbtool-projections"}
+    if not np.any(w):
+        raise InputFormatError(path, first + 1, "every projection weight is zero: the file holds no projections, "
+                               "so no state character can be read", field="weights")
+    from .._validate import occupation_warning
+    occupation_warning(occ, ns, path, meta)
     if "elements" in head:
         meta["elements"] = head["elements"][0].split()
     return BandProjections(kpoints=kp, kweights=kw, energies=e[..., 0], occupations=occ, weights=w,

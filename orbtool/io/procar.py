@@ -27,6 +27,7 @@ import re
 
 import numpy as np
 
+from .._validate import occupation_warning
 from ..errors import InputFormatError
 from ..spectra import BandProjections
 from ._files import read_text
@@ -74,6 +75,7 @@ def read_procar(path, atoms=None) -> BandProjections:
     lines = read_text(path).splitlines()
     if not lines or not lines[0].startswith("PROCAR"):
         raise InputFormatError(path, 1, "expected the first line to start with 'PROCAR'", field="header")
+    _check_last_line(lines, path)
     fast = _read_fast(lines, path)
     spins, orbitals = fast if fast is not None else _read_careful(lines, path)
     nspin = len(spins)
@@ -85,6 +87,12 @@ def read_procar(path, atoms=None) -> BandProjections:
     weights = np.stack([s[4] for s in spins])
     if not kw.sum() > 0:
         raise InputFormatError(path, None, "k-point weights sum to zero", field="k-point weight")
+    if not np.any(weights):
+        raise InputFormatError(path, None, "every projection weight is zero: the file holds no projections "
+                               "(was the projection switched off?), so no state character can be read",
+                               field="weights")
+    meta = {"format": "procar", "nspin": nspin}
+    occupation_warning(occ, nspin, path, meta)
     if atoms is None:
         from .doscar import find_structure_beside
         atoms, found = find_structure_beside(path)
@@ -92,7 +100,27 @@ def read_procar(path, atoms=None) -> BandProjections:
             atoms = None
     return BandProjections(kpoints=kp, kweights=kw, energies=energies, occupations=occ, weights=weights,
                            orbitals=tuple(_ORB[o] for o in orbitals), atoms=atoms, fermi=None, source=str(path),
-                           meta={"format": "procar", "nspin": nspin})
+                           meta=meta)
+
+
+def _check_last_line(lines, path):
+    """A file cut inside its last table row (a run still writing) is refused: the last row must have
+    as many fields as the ``ion ...`` header above it."""
+    n = len(lines)
+    while n and not lines[n - 1].strip():
+        n -= 1
+    if not n:
+        return
+    last = lines[n - 1].split()
+    if not (last[0] == "tot" or last[0].isdigit()):
+        return
+    for i in range(n - 2, max(n - 2000, 0) - 1, -1):
+        if lines[i].lstrip().startswith("ion"):
+            want = len(lines[i].split())
+            if len(last) != want:
+                raise InputFormatError(path, n, f"the last line has {len(last)} fields, the table header {want}: "
+                                       "the file ends inside a line (a run still writing?)", field="ion table")
+            return
 
 
 def _read_careful(lines, path):

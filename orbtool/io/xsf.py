@@ -22,7 +22,7 @@ from ase.data import atomic_numbers
 from ..errors import InputFormatError
 from ..grid import Grid
 from ._bulk import HeaderReader, check_declared_size, next_line, progress_bar
-from ._files import compression_of, open_binary
+from ._files import check_memory, compression_of, open_binary
 from ._numbers import to_float, to_int
 
 __all__ = ["read_xsf"]
@@ -124,6 +124,7 @@ def read_xsf(path, quantity: str = "auto", progress: bool = True) -> list[Grid]:
                 span = np.array([_vec(hr.next(f"spanning vector {i + 1}"), hr, "spanning vector") for i in range(3)])
                 total = counts[0] * counts[1] * counts[2]
                 check_declared_size(path, total, "grid", hr.line, comp)
+                check_memory(path, total * 8, "grid", hr.line)
                 full = np.empty(counts, order="F")
                 reader = hr.values(bar)
                 reader.fill(full.reshape(-1, order="F"), f"grid {name}")

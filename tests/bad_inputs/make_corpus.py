@@ -269,6 +269,110 @@ def sessions():
     _bytes(s / "lying_shape.orbsession", rezip(doc, lying))
 
 
+def _lie_about_sizes(data: bytes, size: int) -> bytes:
+    """A ZIP archive whose local and central headers declare every member ``size`` bytes long
+    (APPNOTE.TXT 4.3.7 / 4.3.12: uncompressed size at offsets 22 and 24); the data stay small."""
+    raw = bytearray(data)
+    for sig, off in ((b"PK\x03\x04", 22), (b"PK\x01\x02", 24)):
+        i = raw.find(sig)
+        while i >= 0:
+            raw[i + off:i + off + 4] = size.to_bytes(4, "little")
+            i = raw.find(sig, i + 4)
+    return bytes(raw)
+
+
+def round_two():
+    """Inputs of issue 18 (second hostile probe)."""
+    m = HERE / "manifest"
+    case = '[[case]]\nname = "a"\npath = "."\n'
+    _text(m / "label_name.toml", case + '[case.labels]\nname = "someone else"\n')
+    _text(m / "label_charge.toml", case + "[case.labels]\ncharge = 7\n")
+    _text(m / "charge_minus_400.toml", case + "charge = -400\n")
+    _text(m / "charge_30_digits.toml", case + "charge = 123456789012345678901234567890\n")
+    _text(m / "defect_list.toml", case + "[case.labels]\ndefect = [1, 2]\n")
+    _text(m / "cation_table.toml", case + "[case.labels]\ncation = { a = 1 }\n")
+    _text(m / "mu_string.toml", case + '[references]\nmu = "rich"\n')
+    _text(m / "mu_not_number.toml", case + '[references]\nmu = { S = "x" }\n')
+    _text(m / "mu_nan.toml", case + "[references]\nmu = { S = nan }\n")
+    # PDOS text of orbtool's own layout with a silently wrong column
+    good = ("# orbtool-pdos 1\n# nspin: 1\n# fermi: 0.0\n# units: energy eV, dos states/eV per spin channel\n"
+            "# columns: energy {cols}\n")
+    energies = np.linspace(-2.0, 2.0, 9)
+    rows = np.column_stack([energies, 0.5 + 0.1 * np.cos(energies), 0.2 + 0.05 * energies ** 2])
+    body = "\n".join(" ".join(f"{x:.6f}" for x in r) for r in rows) + "\n"
+    _text(HERE / "pdos" / "duplicated_column.pdos.txt", good.format(cols="Si0:s:up Si0:s:up") + body)
+    neg = rows.copy()
+    neg[4, 2] = -0.4
+    _text(HERE / "pdos" / "negative_dos.pdos.txt", good.format(cols="Si0:s:up Si0:p:up")
+          + "\n".join(" ".join(f"{x:.6f}" for x in r) for r in neg) + "\n")
+    # a run folder: 63-atom Si cell (64-atom cell minus one) with a PDOS channel for atom 9999
+    cell63 = bulk("Si", "diamond", a=5.43, cubic=True) * (2, 2, 2)
+    del cell63[0]
+    run = HERE / "run_pdos_atom_9999"
+    run.mkdir(exist_ok=True)
+    write(run / "POSCAR", cell63, format="vasp", direct=True)
+    _text(run / "pdos.txt", good.format(cols="Si1:s:up Sn9999:p:up") + body)
+    # PROCAR whose every weight is zero
+    pro = (FIX / "vasp_nospin" / "PROCAR").read_text()
+    _text(HERE / "proj" / "procar_zero_weights" / "PROCAR",
+          re.sub(r"(?m)^([ \t]*(?:\d+|tot))((?:[ \t]+[0-9.]+)+)$",
+                 lambda mt: mt.group(1) + re.sub(r"[0-9.]+", "0.000", mt.group(2)), pro))
+    # NPZ whose orbtool_version is not an integer, and one that declares 1.9 GB
+    import orbtool
+    pd = orbtool.read_pdos(FIX / "vasp_spin" / "DOSCAR", format="doscar")
+    tmp = HERE / ".tmp"
+    tmp.mkdir(exist_ok=True)
+    try:
+        orbtool.write_pdos(tmp / "p.npz", pd, format="npz")
+        npz = (tmp / "p.npz").read_bytes()
+    finally:
+        shutil.rmtree(tmp)
+    for stem, value in (("version_abc", np.array("abc")), ("version_list", np.array([1, 2])),
+                        ("version_nan", np.array(np.nan))):
+        out = io.BytesIO()
+        with zipfile.ZipFile(io.BytesIO(npz)) as zin, zipfile.ZipFile(out, "w") as zout:
+            for name in zin.namelist():
+                raw = zin.read(name)
+                if name == "orbtool_version.npy":
+                    buf = io.BytesIO()
+                    np.save(buf, value)
+                    raw = buf.getvalue()
+                _zip_write(zout, name, raw)
+        _bytes(HERE / "native" / f"{stem}.npz", out.getvalue())
+    out = io.BytesIO()
+    with zipfile.ZipFile(io.BytesIO(npz)) as zin, zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as zout:
+        for name in zin.namelist():
+            _zip_write(zout, name, zin.read(name))
+    with zipfile.ZipFile(out) as z:
+        n_members = len(z.namelist())
+    _bytes(HERE / "native" / "declares_1_9_GB.npz", _lie_about_sizes(out.getvalue(), 1_900_000_000 // n_members))
+    # sessions: 990-deep list; archive declaring 1.5 GB
+    s = HERE / "session"
+    deep = '{"format": "orbtool-session", "schema": 1, "orbtool": "0", "created": "2026-12-01T00:00:00+00:00", ' \
+           '"content": ' + "[" * 990 + "]" * 990 + "}"
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w") as z:
+        _zip_write(z, "session.json", deep.encode())
+    _bytes(s / "deep_990.orbsession", out.getvalue())
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as z:
+        _zip_write(z, "session.json", json.dumps({"format": "orbtool-session", "schema": 1, "content": None}).encode())
+        buf = io.BytesIO()
+        np.save(buf, np.zeros(4))
+        for i in range(8):
+            _zip_write(z, f"arrays/{i}.npy", buf.getvalue())
+    _bytes(s / "declares_1_5_GB.orbsession", _lie_about_sizes(out.getvalue(), 1_500_000_000 // 9))
+    # a vacancy cell with one atom written twice, 0.01 Å apart
+    si = bulk("Si", "diamond", a=5.43, cubic=True) * (2, 2, 2)
+    dup = si.copy()
+    del dup[0]
+    del dup[1]
+    dup.append("Si")
+    dup.positions[-1] = dup.positions[5] + [0.01, 0.0, 0.0]
+    (HERE / "geometry" / "overlapping_atoms").mkdir(parents=True, exist_ok=True)
+    write(HERE / "geometry" / "overlapping_atoms" / "POSCAR", dup, format="vasp", direct=True)
+
+
 if __name__ == "__main__":
     grids()
     spectra()
@@ -276,5 +380,6 @@ if __name__ == "__main__":
     structures_and_energies()
     manifests()
     sessions()
+    round_two()
     total = sum(f.stat().st_size for f in HERE.rglob("*") if f.is_file())
     print(f"corpus: {sum(1 for f in HERE.rglob('*') if f.is_file())} files, {total:,d} bytes")
