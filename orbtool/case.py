@@ -18,6 +18,11 @@ def _check_atoms(atoms, name, source):
         raise InputFormatError(source, None, f"{name} must be an ase.Atoms object", field=name)
 
 
+#: largest |charge| a point-defect case may carry (electrons; common practice: a charge state stays within the
+#: valence of the atoms removed or added, a few electrons — 10 is a generous bound); manifests use the same bound
+MAX_ABS_CHARGE = 10
+
+
 @dataclass(frozen=True, eq=False)
 class DefectCase:
     """A supercell with a defect, its pristine host, and the data read for both.
@@ -84,6 +89,9 @@ class DefectCase:
                                    field="charge") from None
         if q != self.charge:
             raise InputFormatError(src, None, f"charge must be an integer, got {self.charge!r}", field="charge")
+        if abs(q) > MAX_ABS_CHARGE:
+            raise InputFormatError(src, None, f"charge {q:+d}: a point defect's charge state must lie within "
+                                   f"±{MAX_ABS_CHARGE} electrons (a typo?)", field="charge")
         object.__setattr__(self, "charge", q)
         for key, kind in (("defect_pdos", ProjectedDOS), ("host_pdos", ProjectedDOS),
                           ("projections", BandProjections), ("host_projections", BandProjections)):

@@ -83,6 +83,8 @@ def _check_pair(host, defect, max_missing, cell_tolerance):
     delta = {e: cd.get(e, 0) - ch.get(e, 0) for e in sorted(set(ch) | set(cd)) if cd.get(e, 0) != ch.get(e, 0)}
     pretty = ", ".join(f"{e} {v:+d}" for e, v in delta.items()) or "none"
     if nd > nh:
+        from .matching import check_overlaps  # a duplicated atom is not an interstitial
+        check_overlaps(dc, defect.get_positions(), defect.get_pbc(), "defect")
         raise GeometryError(f"the defect cell has {nd - nh} more atom(s) than the host ({pretty}): that is an "
                             "interstitial (or a larger supercell), not a vacancy; locate_vacancy needs a defect cell "
                             "with atoms removed from the host")

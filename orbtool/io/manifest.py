@@ -11,7 +11,10 @@ import re
 import tomllib
 from pathlib import Path
 
-from ..case import Family
+from ..case import (
+    MAX_ABS_CHARGE,  # largest |charge| of a point defect, shared with DefectCase
+    Family,
+)
 from ..errors import InputFormatError
 from ._files import check_regular_file, read_bounded
 
@@ -31,9 +34,6 @@ _TOP_KEYS = {"family", "references", "host", "case"}
 MAX_MANIFEST_BYTES = 1_000_000
 MAX_NESTING = 16
 MAX_TABLES = 5000
-#: largest |charge| accepted for one point defect (common practice: a defect's charge state stays
-#: within the valence of the atoms it removes or adds, at most a few electrons; 10 is a generous bound)
-MAX_ABS_CHARGE = 10
 #: keys of a [[case]] that a [case.labels] entry may not shadow
 _RESERVED_LABELS = {"name", "charge", "path", "host", "labels", "description"}
 
