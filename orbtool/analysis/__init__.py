@@ -16,7 +16,7 @@ _LAZY = {
     "SiteMatch": "matching", "site_neighbours": "periodic", "minimum_image": "periodic",
     "symmetry_adapted_modes": "distortions",
     # states
-    "band_edges": "states", "in_gap_states": "states", "BandEdges": "states", "DefectState": "states",
+    "band_edges": "states", "in_gap_states": "states", "multiplets": "states", "BandEdges": "states", "DefectState": "states",
     "align": "alignment", "Alignment": "alignment",
     # density
     "partition_spheres": "density", "partition_voronoi": "density", "localisation": "density",
