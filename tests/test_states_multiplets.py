@@ -69,8 +69,9 @@ def cells():
 
 def _case(cells, **kw):
     host, defect, shifts, kirr = cells
-    # defect cell at Γ only (its levels keep the full Td degeneracy there); host edges over the 2×2×2 grid
-    return DefectCase("SnS-zb V_S", defect, host=host, projections=_solve(defect, shifts, kirr[:1], 0, **kw),
+    # the defect cell over the 2×2×2 grid: degenerate at Γ (Td multiplets), and at X, M, R where its bands
+    # touch others; every degenerate block at every k is rotated
+    return DefectCase("SnS-zb V_S", defect, host=host, projections=_solve(defect, shifts, kirr, 0, **kw),
                       host_projections=_solve(host, None, kirr, 0), labels={"cation": "Sn"})
 
 
@@ -115,8 +116,9 @@ def test_one_vector_of_the_multiplet_would_have_depended_on_the_basis(cells):
     assert np.abs(one0 - one1).max() > 1e-3
 
 
-def test_multiplets_groups_bands_degenerate_at_any_k():
-    e = np.array([[0.0, 1.0, 1.0, 2.0, 3.0],
-                  [0.5, 1.2, 1.6, 1.6000001, 3.0]])
-    assert multiplets(e, 1e-3) == [(0,), (1, 2, 3), (4,)]
-    assert multiplets(e[:1], 1e-3) == [(0,), (1, 2), (3,), (4,)]
+def test_multiplets_are_the_degenerate_blocks_at_gamma():
+    e = np.array([[0.5, 1.2, 1.6, 1.6000001, 3.0],
+                  [0.0, 1.0, 1.0, 2.0, 3.0]])
+    k = np.array([[0.5, 0, 0], [0.0, 0, 0]])
+    assert multiplets(e, 1e-3, k) == [(0,), (1, 2), (3,), (4,)]
+    assert multiplets(e, 1e-3) == [(0,), (1,), (2, 3), (4,)]

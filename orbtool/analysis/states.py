@@ -7,11 +7,12 @@
   lies inside (VBM + tol, CBM − tol), with its occupation, dispersion over k
   and its weights on atoms, orbitals and neighbour shells.
 
-A degenerate multiplet is one level: its bands (those degenerate with a
-neighbour at any k-point) are grouped and every weight is taken from the sum
-of their projectors, Σ_b |⟨φ|ψ_b⟩|², which does not depend on the basis the
-eigensolver chose inside the degenerate subspace (any orthogonal rotation
-leaves it unchanged). One eigenvector of a multiplet is never used alone.
+A degenerate multiplet is one level: its bands (degenerate at Γ) are grouped
+and every weight is taken from the sum of their projectors, Σ_b |⟨φ|ψ_b⟩|²,
+which does not depend on the basis the eigensolver chose inside the degenerate
+subspace (any orthogonal rotation leaves it unchanged); where a band is
+degenerate with others at another k-point it contributes its fair share of
+that block. One eigenvector of a multiplet is never used alone.
 """
 
 from __future__ import annotations
@@ -305,17 +306,32 @@ def _shell_indices(site, shell):
     return [int(nb.index) for nb in getattr(site, attr, ())]
 
 
-def multiplets(energies, degeneracy: float = 1e-3) -> list[tuple[int, ...]]:
-    """Group bands into degenerate multiplets.
+def _blocks(e, degeneracy):
+    """Consecutive runs of bands closer than ``degeneracy`` (eV) in ascending energies ``e`` (nb,)."""
+    groups, cur = [], [0]
+    for b in range(1, len(e)):
+        if abs(e[b] - e[b - 1]) < degeneracy:
+            cur.append(b)
+        else:
+            groups.append(tuple(cur))
+            cur = [b]
+    groups.append(tuple(cur))
+    return groups
+
+
+def multiplets(energies, degeneracy: float = 1e-3, kpoints=None) -> list[tuple[int, ...]]:
+    """Group bands into degenerate multiplets (the levels of the defect cell).
 
     Parameters
     ----------
     energies : array_like (nk, nb)
         Band energies of one spin channel, ascending at every k, eV.
     degeneracy : float
-        Neighbouring bands closer than this (eV) at *any* k-point belong to one
-        multiplet (the eigensolver may return any basis of a degenerate
-        subspace, so its bands are only meaningful together).
+        Bands closer than this (eV) are degenerate.
+    kpoints : array_like (nk, 3), optional
+        The multiplets are those at Γ (the full point-group symmetry of the site) when Γ is among
+        them, else at the first k-point. At other k-points a supercell's levels split and may touch
+        other bands; there the weights are shared fairly (see :func:`in_gap_states`).
 
     Returns
     -------
@@ -325,16 +341,28 @@ def multiplets(energies, degeneracy: float = 1e-3) -> list[tuple[int, ...]]:
     e = np.atleast_2d(np.asarray(energies, float))
     if e.shape[1] == 0:
         return []
-    linked = np.any(np.abs(np.diff(e, axis=1)) < degeneracy, axis=0)  # (nb - 1,) band b ~ b + 1
-    groups, cur = [], [0]
-    for b in range(1, e.shape[1]):
-        if linked[b - 1]:
-            cur.append(b)
-        else:
-            groups.append(tuple(cur))
-            cur = [b]
-    groups.append(tuple(cur))
-    return groups
+    ref = 0
+    if kpoints is not None:
+        k = np.asarray(kpoints, float)
+        gamma = np.flatnonzero(np.all(np.abs(k - np.round(k)) < 1e-9, axis=1))
+        ref = int(gamma[0]) if len(gamma) else 0
+    return _blocks(e[ref], degeneracy)
+
+
+def _fair_weights(weights, energies, bands, degeneracy):
+    """Σ over ``bands`` of the projections at each k, where a band degenerate (at that k) with others
+    contributes the mean over its whole degenerate block: invariant under any rotation of the eigenvectors
+    inside a degenerate subspace, and the shares of all bands still add up to the total.
+
+    weights (nk, nb, natom, norb), energies (nk, nb) → (nk, natom, norb)."""
+    out = np.zeros((weights.shape[0],) + weights.shape[2:])
+    wanted = set(bands)
+    for k in range(weights.shape[0]):
+        for blk in _blocks(energies[k], degeneracy):
+            m = len(wanted.intersection(blk))
+            if m:
+                out[k] += weights[k, list(blk)].sum(axis=0) * (m / len(blk))
+    return out
 
 
 def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=None, tol: float = 0.05,
@@ -362,9 +390,12 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
     dispersion_warning : float
         Dispersion (eV) above which a note warns that the supercell is small.
     degeneracy : float
-        Bands closer than this (eV) at any k-point form one multiplet (see
+        Bands closer than this (eV) at Γ form one multiplet (see
         :func:`multiplets`); the multiplet is one DefectState whose weights come
-        from the sum of its projectors.
+        from the sum of its projectors. At a k-point where one of its bands is
+        degenerate with bands outside it, that band contributes its fair share
+        (the mean over the degenerate block), so no weight depends on the
+        eigensolver's basis.
 
     Returns
     -------
@@ -424,21 +455,23 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
                                "structures", field="site")
     out = []
     for s in range(proj.nspin):
-        for group in multiplets(proj.energies[s], degeneracy):
+        for group in multiplets(proj.energies[s], degeneracy, proj.kpoints):
             bands = list(group)
             e_mean = float(mean[s, bands].mean())
             aligned = e_mean + shift
             if not (edges.vbm + tol < aligned < edges.cbm - tol):
                 continue
             out.append(_level(proj, s, bands, e_mean, aligned, shift, edges, ls, first, second, has_shells, notes,
-                              dispersion_warning))
+                              dispersion_warning, degeneracy))
     out.sort(key=lambda st: (st.energy_aligned, st.spin))
     return out
 
 
-def _level(proj, s, bands, e_mean, aligned, shift, edges, ls, first, second, has_shells, notes, dispersion_warning):
+def _level(proj, s, bands, e_mean, aligned, shift, edges, ls, first, second, has_shells, notes, dispersion_warning,
+           degeneracy):
     """One DefectState from the bands of a multiplet: weights of the sum of its projectors."""
-    raw = np.einsum("k,kbao->ao", proj.kweights, proj.weights[s][:, bands])  # Σ_b over the multiplet
+    fair = _fair_weights(proj.weights[s], proj.energies[s], bands, degeneracy)  # Σ_b over the multiplet, per k
+    raw = np.einsum("k,kao->ao", proj.kweights, fair)
     tot = raw.sum()
     ao = raw / tot if tot > 0 else raw
     atom_w = ao.sum(axis=1)
