@@ -112,9 +112,11 @@ def analyze_case(case) -> CaseAnalysis:
         out.state = choose_defect_state(out.states)
         if out.state is not None and len(out.states) > 1:  # a choice: say which state and why
             st = out.state
-            out.notes.append(f"{len(out.states)} in-gap levels; the defect state is bands "
-                             f"{', '.join(str(b) for b in st.bands)} spin {st.spin} at VBM + {st.above_vbm:.3f} eV, "
-                             f"the one with the largest first-shell weight ({st.shell_fractions.get(1, 0.0):.2f})")
+            which = (f"band {st.band}" if len(st.bands) == 1 else
+                     f"the {len(st.bands)}-fold multiplet of bands {', '.join(str(b) for b in st.bands)}")
+            out.notes.append(f"{len(out.states)} in-gap levels; the defect state is taken to be {which} spin {st.spin} "
+                             f"at VBM + {st.above_vbm:.3f} eV, the one with the largest first-shell weight "
+                             f"({st.shell_fractions.get(1, 0.0):.2f})")
         if out.state is None:
             near = [s for s in in_gap_states(case, site=out.site, tol=-RESONANT_WINDOW)
                     if s.shell_fractions.get(1, 0.0) >= RESONANT_MIN_SHELL]

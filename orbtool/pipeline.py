@@ -83,7 +83,7 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
     if story is not None:  # the same account the app, the reports and the figures show
         texts += [story.summary(), ""]
     if fit is not None:
-        texts += [fit.summary(), "", "Mechanism", "---------", fit.explain(), ""]
+        texts += [fit.summary(), "", "Mechanism", "---------", fit.explain(case=rep.name if rep else None), ""]
         try:
             inv = fit.smallest_change_to_shallow(case=rep.name if rep else None, n_grid=81)
             texts += [f"What would make {rep.name if rep else 'it'} shallow? (smallest change per knob; "

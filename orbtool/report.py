@@ -145,7 +145,8 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str
                      + html.escape(res.story(rep.name).summary()) + "</pre>")
     if fit is not None:
         parts.append("<h2>Shared tight-binding fit</h2><pre>" + html.escape(fit.summary()) + "</pre>")
-        parts.append("<h2>Mechanism</h2><pre>" + html.escape(fit.explain()) + "</pre>")
+        explained = fit.explain(case=rep.name if rep is not None and rep.name in res.fit_cases else None)
+        parts.append("<h2>Mechanism</h2><pre>" + html.escape(explained) + "</pre>")
     if "levels" in divs:
         parts.append(divs["levels"])
     if "pdos" in divs:

@@ -215,8 +215,8 @@ def _account(name_of_model, fit, why, analysis, *, cations=(), fitted_cations=()
             validation["breathe −5 %"] = (f"fitted cases span first-shell distances {lo:.3f}–{hi:.3f} Å; −5 % gives "
                                           f"{after:.3f} Å: " + ("inside the data" if inside else "extrapolation"))
         else:
-            validation["breathe −5 %"] = ("the fitted cases have one first-shell distance only: the breathing "
-                                          "response is the model's Slater–Koster distance law, not fitted (extrapolation)")
+            validation["breathe −5 %"] = ("the fitted cases have one first-shell distance only: the breathing response "
+                                          "is the model's Slater–Koster distance law, not fitted (extrapolation)")
     first = sorted({model.elements[i] for i, sh in enumerate(model.shell) if sh == 1})
     own = analysis.labels.get("cation")
     old = own if own in first else (first[0] if first else None)
