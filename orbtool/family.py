@@ -23,7 +23,8 @@ import numpy as np
 from .batch import analyze_family  # the parallel machinery lives in orbtool.batch
 from .errors import OrbtoolError
 
-__all__ = ["CaseAnalysis", "FamilyAnalysis", "analyze_case", "analyze_family", "TOXIC_ELEMENTS", "clean_for_json"]
+__all__ = ["CaseAnalysis", "FamilyAnalysis", "analyze_case", "analyze_family", "case_story", "TOXIC_ELEMENTS",
+           "clean_for_json"]
 
 #: elements whose presence adds a handling caution to reports (common practice: the
 #: heavy-metal and metalloid hazards named in most chemical-safety regulations)
@@ -39,7 +40,8 @@ class CaseAnalysis:
     name, labels, charge : the case's identity.
     site : VacancySite or None
     states : list of DefectState (in-gap states, may be empty: no deep level)
-    state : DefectState or None — the defect state (largest first-shell weight)
+    state : DefectState or None — the defect state by :data:`orbtool.story.STATE_RULE`
+    resonant : bool — the defect state lies just outside the gap (chosen by character)
     descriptors : dict of float — geometry descriptors of the site
     moments : dict — first-shell PDOS moments host vs defect (may be empty)
     error : str or None — why the analysis stopped, if it did
@@ -53,6 +55,7 @@ class CaseAnalysis:
     site: Any = None
     states: list = field(default_factory=list)
     state: Any = None
+    resonant: bool = False
     descriptors: dict = field(default_factory=dict)
     moments: dict = field(default_factory=dict)
     error: str | None = None
@@ -82,7 +85,7 @@ def _first_shell_moments(case, site) -> dict:
     """Change of the first-shell PDOS moments host → defect (Cyrot-Lackmann moments theorem)."""
     if case.defect_pdos is None or case.host_pdos is None:
         return {}
-    from .analysis.moments import neighbour_moments
+    from .analysis.shell_moments import neighbour_moments
     res = neighbour_moments(case, site=site)
     return res.to_dict() if hasattr(res, "to_dict") else dict(res)
 
@@ -98,20 +101,32 @@ def analyze_case(case) -> CaseAnalysis:
     out = CaseAnalysis(case.name, dict(case.labels), case.charge)
     try:
         from .analysis import in_gap_states, locate_vacancy
+        from .story import RESONANT_MIN_SHELL, RESONANT_WINDOW, choose_defect_state
         if case.host is None:
             raise OrbtoolError("no host structure: the vacancy cannot be located")
         out.site = locate_vacancy(case.host, case.defect)
         out.descriptors = dict(out.site.descriptors())
         out.states = list(in_gap_states(case, site=out.site))
-        if out.states:
-            out.state = max(out.states, key=lambda s: (s.shell_fractions.get(1, 0.0), -abs(s.spin)))
-            if len(out.states) > 1:  # a choice: say which state and why
+        out.state = choose_defect_state(out.states)
+        if out.state is not None and len(out.states) > 1:  # a choice: say which state and why
+            st = out.state
+            which = (f"band {st.band}" if len(st.bands) == 1 else
+                     f"the {len(st.bands)}-fold multiplet of bands {', '.join(str(b) for b in st.bands)}")
+            out.notes.append(f"{len(out.states)} in-gap levels; the defect state is taken to be {which} spin {st.spin} "
+                             f"at VBM + {st.above_vbm:.3f} eV, the one with the largest first-shell weight "
+                             f"({st.shell_fractions.get(1, 0.0):.2f})")
+        if out.state is None:
+            near = [s for s in in_gap_states(case, site=out.site, tol=-RESONANT_WINDOW)
+                    if s.shell_fractions.get(1, 0.0) >= RESONANT_MIN_SHELL]
+            out.state = choose_defect_state(near)
+            if out.state is not None:
                 st = out.state
-                out.notes.append(f"{len(out.states)} in-gap states; the defect state is taken to be band {st.band} "
-                                 f"spin {st.spin} at VBM + {st.above_vbm:.3f} eV, the one with the largest first-shell "
-                                 f"weight ({st.shell_fractions.get(1, 0.0):.2f})")
-        else:
-            out.notes.append("no state in the gap: the vacancy leaves no deep Kohn–Sham level")
+                out.resonant = True
+                side, by = (("below the VBM", -st.above_vbm) if st.above_vbm < 0 else ("above the CBM", -st.below_cbm))
+                out.notes.append(f"no level in the gap; the defect state is the resonant level {by:.3f} eV {side} "
+                                 f"(first shell {st.shell_fractions.get(1, 0.0):.2f}), chosen by character")
+            else:
+                out.notes.append("no state in the gap: the vacancy leaves no deep Kohn–Sham level")
         try:
             out.moments = _first_shell_moments(case, out.site)
         except OrbtoolError as exc:
@@ -120,6 +135,15 @@ def analyze_case(case) -> CaseAnalysis:
         out.error = str(exc)
     out.seconds = time.perf_counter() - t0
     return out
+
+
+def case_story(case, **fit_options):
+    """Analyse one case on its own (:func:`analyze_case`), fit it with the same model choice as a family
+    (:meth:`FamilyAnalysis.shared_fit`: hybrid vs sp by AIC) and return its
+    :class:`~orbtool.story.CaseStory`, the fit named ``"per-case fit"``."""
+    from .case import Family
+    fa = FamilyAnalysis(Family((case,), name=case.name), [analyze_case(case)])
+    return fa.story(case.name, **fit_options)
 
 
 def _num(x):
@@ -144,6 +168,10 @@ class FamilyAnalysis:
     fit_cases: list = field(default_factory=list)
     levels: dict = field(default_factory=dict)
     notes: list = field(default_factory=list)
+    fit_why: str = ""
+
+    def __post_init__(self):
+        self.stories: dict = {}  # (name, per_case) → CaseStory; a cache, not saved with a session
 
     def __getitem__(self, name) -> CaseAnalysis:
         for r in self.results:
@@ -206,11 +234,53 @@ class FamilyAnalysis:
             raise OrbtoolError("no cluster model could be fitted: " + "; ".join(self.notes[-len(kinds):]))
         best = min(fits, key=lambda k: fits[k].aic)
         if len(fits) > 1:
-            self.notes.append("model chosen by AIC: " + ", ".join(
-                f"{k} {f.aic:.1f}" + (" (kept)" if k == best else "") for k, f in fits.items()))
+            self.fit_why = "chosen by AIC: " + ", ".join(
+                f"{k} {f.aic:.1f}" + (" (kept)" if k == best else "") for k, f in fits.items())
+            self.notes.append("model " + self.fit_why)
+        else:
+            self.fit_why = f"{best} model as asked" if orbitals != "auto" else f"only the {best} model could be fitted"
         self.fit_result = fits[best]
         self.fit_cases = [r.name for r in use]
+        self.stories = {}
         return self.fit_result
+
+    # ----------------------------------------------------------------- story
+    def story(self, name, *, per_case: bool = False, **fit_options):
+        """The :class:`orbtool.story.CaseStory` of case ``name``, computed once and kept.
+
+        The shared fit (fitted here with ``fit_options`` if not yet done) is the ``"family fit"``;
+        a family of one case calls it the ``"per-case fit"``. With ``per_case=True`` the case is also
+        fitted on its own (same model choice) and that fit is carried second, named ``"per-case fit"``.
+        """
+        from .story import build_story
+        key = (name, per_case)
+        cache = self.__dict__.setdefault("stories", {})
+        if key in cache:
+            return cache[key]
+        r = self[name]
+        fits = []
+        if r.ok and r.state is not None:
+            if self.fit_result is None:
+                try:
+                    self.shared_fit(**({"charge": None} if len(self.results) == 1 else {}), **fit_options)
+                except OrbtoolError as exc:
+                    self.notes.append(f"shared fit not possible: {exc}")
+            single = len(self.results) == 1
+            if self.fit_result is not None and name in self.fit_cases:
+                fits.append(("per-case fit" if single else "family fit", self.fit_result, self.fit_why))
+            if per_case and not single:
+                own = case_story(self.family[name], **fit_options)
+                fits += [(m.name, m.fit, m.why) for m in own.models]
+        fitted = [self[n] for n in self.fit_cases]
+        distances = [x.descriptors.get("site_distance_mean") for x in fitted]
+        distances = [float(d) for d in distances if d is not None and math.isfinite(float(d))]
+        story = build_story(r, fits, cations=[c for c in self.family.label_values("cation") if c],
+                            fitted_cations=sorted({x.labels.get("cation") for x in fitted if x.labels.get("cation")}),
+                            distances=distances)
+        if r.ok and r.state is not None and not story.models and self.fit_result is not None:
+            story.notes.append(f"{name} is not part of the family fit (fitted: cases in the fitted charge state)")
+        cache[key] = story
+        return story
 
     # ------------------------------------------------------- thermodynamics
     def transition_levels(self, *, srh: dict | None = None):

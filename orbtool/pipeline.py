@@ -11,22 +11,9 @@ from pathlib import Path
 
 from .errors import OrbtoolError
 from .outputs import OutputFolder
+from .story import MODEL_CAUTION, representative, toxic_caution
 
-__all__ = ["run_analysis", "run_fit", "demo_manifest", "MODEL_CAUTION", "toxic_caution"]
-
-MODEL_CAUTION = ("Model predictions are not measurements: the fitted tight-binding model interpolates the DFT data "
-                 "it was given and inherits its approximations (band gaps, self-interaction). Confirm candidates "
-                 "with full calculations and experiment.")
-
-
-def toxic_caution(elements) -> str:
-    """Caution text for a family containing toxic elements (empty if none)."""
-    if not elements:
-        return ""
-    return (f"This family contains {', '.join(elements)}: toxic elements whose synthesis, handling and disposal "
-            "are governed by local regulations and licensed laboratory practice. orbtool gives no advice on "
-            "handling; follow your institution's safety office.")
-
+__all__ = ["run_analysis", "run_fit", "demo_manifest", "MODEL_CAUTION", "toxic_caution"]  # cautions: orbtool.story
 
 def demo_manifest() -> Path:
     """Path of the bundled demo family's manifest."""
@@ -53,9 +40,14 @@ def _analyse(manifest, workers, scheduler, quiet):
 
 
 def run_fit(manifest, workers=None, quiet=False):
-    """Analyse the family and return the shared fit (FitResult)."""
+    """Analyse the family and return the shared fit (FitResult); unless ``quiet``, first print the
+    representative case's story (the account every surface shows)."""
     _, res = _analyse(manifest, workers, None, quiet)
-    return res.shared_fit()
+    fit = res.shared_fit()
+    rep = representative(res, fit)
+    if rep is not None:
+        _say(quiet, res.story(rep.name).summary() + "\n")
+    return fit
 
 
 def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, figures=True, quiet=False,
@@ -86,10 +78,13 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
     if demo:
         texts += ["NOTE: the demo family is MODEL DATA computed with orbtool's own supercell tight-binding "
                   "generator for invented compounds; it shows the workflow, not real materials.", ""]
+    rep = representative(res, fit)
+    story = res.story(rep.name) if rep is not None else None
+    if story is not None:  # the same account the app, the reports and the figures show
+        texts += [story.summary(), ""]
     if fit is not None:
-        texts += [fit.summary(), "", "Mechanism", "---------", fit.explain(), ""]
+        texts += [fit.summary(), "", "Mechanism", "---------", fit.explain(case=rep.name if rep else None), ""]
         try:
-            rep = _representative(res, fit)
             inv = fit.smallest_change_to_shallow(case=rep.name if rep else None, n_grid=81)
             texts += [f"What would make {rep.name if rep else 'it'} shallow? (smallest change per knob; "
                       "model prediction)",
@@ -115,7 +110,6 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
         _figures(folder, fam, res, fit, quiet)
     from .report import case_report, family_report
     folder.write_text("report.html", family_report(fam, res, fit, trends, demo=demo))
-    rep = _representative(res, fit)
     if rep is not None:  # one case report (each embeds bokeh, ~4 MB): the representative case
         folder.write_text(f"report_{_safe(rep.name)}.html", case_report(fam, res, rep.name, fit, demo=demo))
     _say(quiet, f"wrote {len(folder.written)} files to {folder.root} in {time.perf_counter() - t0:.1f} s")
@@ -140,19 +134,6 @@ def _inverse_lines(changes) -> list[str]:
     return lines
 
 
-def _representative(res, fit):
-    """The case the single-case figures show: among the fitted cases, a relaxed
-    neutral one (not a what-if variant) with the deepest level."""
-    cands = [r for r in res.results if r.ok and r.state is not None and (fit is None or r.name in res.fit_cases)]
-    if not cands:
-        return None
-
-    def key(r):
-        plain = str(r.labels.get("variant", "relaxed")) in ("relaxed", "", "None")
-        return (plain, r.charge == 0, min(r.state.above_vbm, r.state.below_cbm))
-    return max(cands, key=key)
-
-
 def _figures(folder, fam, res, fit, quiet):
     import matplotlib
 
@@ -161,17 +142,15 @@ def _figures(folder, fam, res, fit, quiet):
 
     from . import figures as F
     from .mechanism import mechanism
-    rep = _representative(res, fit)
+    rep = representative(res, fit)
     made = []
     if rep is not None:
         case = fam[rep.name]
-        if fit is not None:
-            knobs = {}
-            for entry in res.knob_effects():
-                if entry["case"] == rep.name:
-                    knobs = {("breathe −5 %" if k == "breathe_-5%" else k.replace("swap_", "").replace("->", "→")): v
-                             for k, v in entry.items() if k not in ("case", "level") and v is not None}
-            fig = F.mechanism_figure(mechanism(fit, rep.name, knobs=knobs))
+        story = res.story(rep.name)
+        if story.model is not None:
+            m = story.model
+            knobs = {k: v for k, v in m.knobs.items() if v is not None}
+            fig = F.mechanism_figure(mechanism(m.fit, rep.name, knobs=knobs))
             made += _save(F, folder, fig, "mechanism")
             plt.close(fig)
         if case.defect_pdos is not None:

@@ -82,12 +82,11 @@ def _bokeh_parts(fam, res, fit, rep):
     x = "pair_distance_mean" if "pair_distance_mean" in cols else views.family.numeric_keys(cols)[0]
     board = views.family_board(cols, x=x, y="above_vbm")
     figs["board"] = board[0] if isinstance(board, tuple) else board
-    if fit is not None and rep is not None:
-        pred = fit.predict(case=rep.name)
-        from .mechanism import mechanism
-        groups = mechanism(fit, rep.name, knobs={"none": 0.0}).orbital_groups()
-        dangling = min((e for e, _ in groups.values()), key=lambda e: abs(e - pred.level))
-        data = views.level_diagram_data(pred, dangling=dangling)
+    story = res.story(rep.name) if rep is not None else None
+    if story is not None and story.model is not None:
+        m = story.model
+        pred = m.fit.predict(case=rep.name)
+        data = views.level_diagram_data(pred, dangling=m.dangling_energy)
         cbm = pred.cbm if math.isfinite(pred.cbm) else pred.level + 1
         figs["levels"] = views.level_diagram(data, y_range=(-2.0, cbm + 1.5),
                                              title=f"{rep.name}: fitted levels")
@@ -114,8 +113,8 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str
     """The HTML text of a family report (inline bokeh; no network needed)."""
     from bokeh.resources import INLINE
 
-    from .pipeline import MODEL_CAUTION, _representative, toxic_caution
-    rep = _representative(res, fit)
+    from .story import MODEL_CAUTION, representative, toxic_caution
+    rep = representative(res, fit)
     parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>orbtool report: "
              f"{html.escape(fam.name)}</title><style>{_CSS}</style>{INLINE.render()}"]
     try:
@@ -141,9 +140,13 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str
         top = sorted(trends["correlation"].items(), key=lambda kv: -abs(kv[1]))[:6]
         parts.append("<p>Strongest correlations of the level (eV above VBM) with descriptors (Pearson r, "
                      f"n = {trends['n']}): " + ", ".join(f"{html.escape(k)} {v:+.2f}" for k, v in top) + ".</p>")
+    if rep is not None:
+        parts.append("<h2>Defect state and model of the representative case</h2><pre class='story'>"
+                     + html.escape(res.story(rep.name).summary()) + "</pre>")
     if fit is not None:
         parts.append("<h2>Shared tight-binding fit</h2><pre>" + html.escape(fit.summary()) + "</pre>")
-        parts.append("<h2>Mechanism</h2><pre>" + html.escape(fit.explain()) + "</pre>")
+        explained = fit.explain(case=rep.name if rep is not None and rep.name in res.fit_cases else None)
+        parts.append("<h2>Mechanism</h2><pre>" + html.escape(explained) + "</pre>")
     if "levels" in divs:
         parts.append(divs["levels"])
     if "pdos" in divs:
@@ -166,7 +169,7 @@ def case_report(fam, res, name: str, fit=None, *, demo: bool = False) -> str:
     from bokeh.embed import components
     from bokeh.resources import INLINE
 
-    from .pipeline import MODEL_CAUTION, toxic_caution
+    from .story import MODEL_CAUTION, toxic_caution
     r = res[name]
     parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>orbtool report: "
              f"{html.escape(name)}</title><style>{_CSS}</style>{INLINE.render()}"]
@@ -175,9 +178,11 @@ def case_report(fam, res, name: str, fit=None, *, demo: bool = False) -> str:
         try:
             from . import views
             figs = {}
-            if fit is not None and name in res.fit_cases:
-                pred = fit.predict(case=name)
-                figs["levels"] = views.level_diagram(views.level_diagram_data(pred), y_range=(-2.0, pred.cbm + 1.5
+            story = res.story(name)
+            if story.model is not None:
+                pred = story.model.fit.predict(case=name)
+                data = views.level_diagram_data(pred, dangling=story.model.dangling_energy)
+                figs["levels"] = views.level_diagram(data, y_range=(-2.0, pred.cbm + 1.5
                                                      if math.isfinite(pred.cbm) else pred.level + 2),
                                                      title=f"{name}: fitted levels")
             script, divs = components(figs) if figs else ("", {})
@@ -198,6 +203,9 @@ def case_report(fam, res, name: str, fit=None, *, demo: bool = False) -> str:
     if tox:
         parts.append(f"<div class='caution'><b>Toxic elements.</b> {html.escape(tox)}</div>")
     parts.append("<h2>Result</h2><pre>" + html.escape(r.summary()) + "</pre>")
+    if r.ok:
+        parts.append("<h2>Defect state and model</h2><pre class='story'>" + html.escape(res.story(name).summary())
+                     + "</pre>")
     if r.site is not None:
         parts.append("<h2>Vacancy and neighbour shells</h2><pre>" + html.escape(r.site.summary()) + "</pre>")
     for k, st in enumerate(r.states):

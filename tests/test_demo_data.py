@@ -165,7 +165,8 @@ def test_oszicar_final_line_energies_match_summary():
 # ---------------------------------------------------------------- the generator's physics
 @functools.lru_cache(maxsize=None)
 def _edges(spec):
-    """Host band edges over the 2x2x2 grid (the irreducible points carry every eigenvalue)."""
+    """Host band edges over the 2x2x2 grid (the irreducible points carry every eigenvalue), and the
+    mean |c|² over the whole degenerate multiplet at each edge (never one eigenvector of it)."""
     host = sc.build_host(spec)
     _, kirr, _ = sc.kpoint_sets()
     b = tbmodel.find_bonds(host, spec.cutoff, (spec.cation,), sc.SECOND_SCALE)
@@ -174,9 +175,13 @@ def _edges(spec):
     nocc = _nelect(host) // 2
     kv = int(np.argmax(eps[:, nocc - 1]))
     kc = int(np.argmin(eps[:, nocc]))
-    _, vv = np.linalg.eigh(H[kv])
-    _, vc = np.linalg.eigh(H[kc])
-    return host, eps[kv, nocc - 1], eps[kc, nocc], vv[:, nocc - 1], vc[:, nocc]
+    ev, vv = np.linalg.eigh(H[kv])
+    ec, vc = np.linalg.eigh(H[kc])
+    top = np.abs(ev - ev[nocc - 1]) < 1e-6
+    bot = np.abs(ec - ec[nocc]) < 1e-6
+    w_top = (np.abs(vv[:, top]) ** 2).mean(axis=1)
+    w_bot = (np.abs(vc[:, bot]) ** 2).mean(axis=1)
+    return host, eps[kv, nocc - 1], eps[kc, nocc], w_top, w_bot
 
 
 @pytest.mark.parametrize("spec", sc.HOSTS, ids=[h.name for h in sc.HOSTS])
@@ -190,8 +195,8 @@ def test_host_gap_ordering(spec):
     anion_p[sym == spec.anion, 1:] = True
     cation_p = np.zeros((len(host), 4), bool)
     cation_p[sym == spec.cation, 1:] = True
-    assert np.sum(np.abs(v_top[anion_p.ravel()]) ** 2) > 0.5
-    assert np.sum(np.abs(v_bot[cation_p.ravel()]) ** 2) > 0.5
+    assert np.sum(v_top[anion_p.ravel()]) > 0.5
+    assert np.sum(v_bot[cation_p.ravel()]) > 0.5
     es_a, ep_a = tbmodel.TERM_VALUES_1980[spec.anion]
     es_c, ep_c = tbmodel.TERM_VALUES_1980[spec.cation]
     assert ep_a < vbm < cbm and cbm > ep_a
@@ -199,16 +204,22 @@ def test_host_gap_ordering(spec):
 
 @pytest.mark.parametrize("spec", sc.HOSTS, ids=[h.name for h in sc.HOSTS])
 def test_anion_vacancy_level_in_gap(spec):
-    """Unrelaxed V_S: a Γ level strictly inside the host gap with most weight on the first shell."""
+    """Unrelaxed V_S: a Γ level inside the host gap with most weight on the first shell.
+
+    The level is a whole multiplet (sum of its projectors) taken at least 20 meV inside the gap (the
+    generator's own margin, ``select_state_bands``): states of the defect cell that the vacancy leaves
+    untouched sit at the host VBM itself, where a bare ``eps > vbm`` is decided by rounding, and one
+    eigenvector of their degenerate multiplet depends on the LAPACK kernel."""
     host, vbm, cbm, _, _ = _edges(spec)
     idx = sc.vacancy_index(host, spec.anion)
     d, site, shell = sc.breathe(host, idx, 0.0, 1.2 * spec.bond)
     b = tbmodel.find_bonds(d, spec.cutoff, (spec.cation,), sc.SECOND_SCALE)
     H = tbmodel.hamiltonians(d, b, [[0, 0, 0]], onsite_shifts=sc.vacancy_shifts(spec, spec.anion, len(d), shell))
     eps, vec = np.linalg.eigh(H[0])
-    inside = np.flatnonzero((eps > vbm) & (eps < cbm))
+    inside = np.flatnonzero((eps > vbm + 0.02) & (eps < cbm - 0.02))
     assert len(inside) >= 1
-    w = np.abs(vec[:, inside[0]].reshape(len(d), 4)) ** 2
+    multiplet = np.flatnonzero(np.abs(eps - eps[inside[0]]) < 1e-3)
+    w = (np.abs(vec[:, multiplet]) ** 2).sum(axis=1).reshape(len(d), 4) / len(multiplet)
     assert w[shell].sum() > 0.5
 
 

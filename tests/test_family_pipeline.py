@@ -160,3 +160,43 @@ def test_report_loads_in_chromium_without_console_errors(outputs):
     assert not errors, errors
     assert "orbtool report" in title
     assert n_canvas >= 2  # bokeh rendered the board and the diagrams (canvases live in shadow DOM)
+
+
+def test_app_report_and_summary_tell_one_story(family, analysis, outputs):
+    """One account per case (ARCHITECTURE.md, "One analysis per case"): the app — built headless, its readout
+    and level-diagram sources read back — and the report / fit_summary.txt written by an independent
+    pipeline run show the same level, label, dangling-orbital energy and swap candidates for the
+    representative case. (Consistency between surfaces; the numbers themselves are checked against the
+    DFT-side analysis in test_shared_fit_reproduces_levels_and_breathing_trend.)"""
+    import html as htmllib
+
+    from orbtool.story import representative
+    from orbtool.views._sources import named_sources
+    from orbtool.views.levels import LEVEL_SOURCES
+    from orbtool.widgets import App
+
+    rep = representative(analysis, analysis.fit_result)
+    story = analysis.story(rep.name)
+    m = story.model
+    assert m is not None and m.name == "family fit" and m.label not in ("", "?")
+    app = App(family, analysis=analysis)
+    app.show_case(family[rep.name])
+    assert app.story is story                                   # read, not recomputed
+    lv = app.levels
+    assert lv.prediction.level == pytest.approx(m.level, abs=1e-12)
+    assert lv.prediction.character["label"] == m.label
+    assert f"{m.level:.3f} ± {m.sigma:.3f} eV" in lv.readout.value
+    src = named_sources(lv.figure, LEVEL_SOURCES)
+    assert src[LEVEL_SOURCES[0]].data["y"] == [pytest.approx(m.dangling_energy, abs=1e-12)]
+    assert list(lv.swap.options[1:]) == [p.replace("→", " → ") for p in m.swaps]
+    # the pipeline's own run (another process, same data) writes the same account
+    summary = (outputs / "fit_summary.txt").read_text()
+    report = (outputs / "report.html").read_text()
+    line = f"level {m.level:+.3f} ± {m.sigma:.3f} eV, label {m.label}"
+    assert line in summary and htmllib.escape(line) in report
+    for key in m.swaps:
+        assert f"knob {key:<14} {m.knobs[key]:+.3f} eV" in summary
+    groups = ", ".join(f"{k} ×{n} {e:+.2f} eV" for k, (e, n) in m.dangling.items())
+    assert groups in summary and htmllib.escape(groups) in report
+    case_page = (outputs / f"report_{rep.name}.html").read_text()
+    assert htmllib.escape(line) in case_page

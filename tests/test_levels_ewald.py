@@ -117,7 +117,8 @@ def test_potential_alignment_recovers_constant_shift():
 
 def test_bad_inputs_raise():
     cell = np.eye(3) * 10
-    for eps in (1.0, 0.5, -3.0, np.diag([5.0, 0.9, 5.0])):
+    for eps in (0.5, -3.0,  # ε = 1 (vacuum) is allowed: test_vacuum_dielectric_is_accepted...
+                0.999, np.diag([5.0, 0.9, 5.0])):
         with pytest.raises(ModelError, match="principal value"):
             charge_correction(1, cell, eps)
     with pytest.raises(ModelError, match="symmetric"):
@@ -133,3 +134,21 @@ def test_bad_inputs_raise():
         charge_correction(1, cell, 5.0, host_potential=host)
     with pytest.raises(ModelError, match="no grid point"):
         potential_alignment(host, defect, np.zeros(3), far_radius=100.0)
+
+
+def test_vacuum_dielectric_is_accepted_and_matches_makov_payne():
+    """ε = 1 (vacuum, the setting of Makov & Payne, Phys. Rev. B 51, 4014 (1995)): leading correction
+    q²α/(2L) with α = 2.8373 for a simple cubic cell (same paper); the Ewald image energy of a point
+    charge in a cubic cell equals it; the Madelung result names the length it refers to."""
+    cell = np.eye(3) * 10.0
+    mp = makov_payne_energy(1, cell, 1.0)
+    assert mp["leading"] == pytest.approx(2.8373 * COULOMB / 20.0, rel=1e-4)
+    assert image_charge_energy(1, cell, 1.0) == pytest.approx(mp["leading"], rel=1e-6)
+    assert float(charge_correction(1, cell, 1.0)) == pytest.approx(mp["leading"], rel=1e-6)
+    assert makov_payne_energy(2, cell, 1.0)["leading"] == pytest.approx(4 * mp["leading"], rel=1e-12)
+    with pytest.raises(ModelError, match="≥ 1"):
+        image_charge_energy(1, cell, 0.9)
+    m = lattice_madelung_alpha(cell)
+    alpha, length = m
+    assert alpha == pytest.approx(2.8373, abs=1e-4) and length == pytest.approx(10.0)
+    assert m.length == length and "L = V^(1/3) = 10.000000 Å" in m.reference

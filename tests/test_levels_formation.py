@@ -70,6 +70,43 @@ def test_negative_u_skips_the_middle_state():
     assert d.transitions[0].above_vbm == pytest.approx(1.25, abs=1e-12)
     assert d.stable_ranges()[0] is None
     assert any("never the lowest" in n for n in d.notes)
+    # the two one-electron levels and U = ε(0/−) − ε(+/0) = 0.5 − 2.0 = −1.5 eV (hand arithmetic above)
+    t = d.transitions[0]
+    assert t.electrons == 2 and t.negative_u
+    assert t.one_electron == (("ε(+1/0)", pytest.approx(2.0, abs=1e-12)), ("ε(0/-1)", pytest.approx(0.5, abs=1e-12)))
+    assert t.u == pytest.approx(-1.5, abs=1e-12)
+    assert any(n.startswith("negative U") and "-1.500 eV" in n for n in d.notes)
+
+
+def test_negative_u_level_gets_no_one_electron_srh_and_says_so():
+    """SRH (Shockley & Read, Phys. Rev. 87, 835 (1952)) describes one-electron capture and emission; a
+    two-electron level ε(+1/−1) must not get the one-level formula. Its one-electron levels are listed,
+    the note names negative U with U's value, and no SRH ratio is given for any of them."""
+    from orbtool.levels import DefectLevels, Semiconductor, TrapRecombination
+    states = [ChargeState(1, -10.0), ChargeState(0, -8.0), ChargeState(-1, -7.5)]
+    d = formation_energies(states, {}, vbm=0.0, gap=3.0, exchanged={}, host_total_energy=-12.0)
+    rec = TrapRecombination(Semiconductor.from_masses(3.0, 0.3, 0.3), tau_n=1e-6, tau_p=1e-6)
+    dl = DefectLevels.build("V", diagram=d, recombination=rec)
+    two = next(e for e in dl.entries if e.label == "ε(+1/-1)")
+    assert two.srh_ratio is None and "negative U (U = -1.500 eV)" in two.note and "SRH not computed" in two.note
+    ones = [e for e in dl.entries if e.kind == "one-electron"]
+    assert [e.label for e in ones] == ["ε(+1/0)", "ε(0/-1)"]
+    assert all(e.srh_ratio is None for e in ones)
+    assert any(n.startswith("negative U") for n in dl.notes)
+    assert "negative U" in dl.summary()
+
+
+def test_two_electron_level_without_the_middle_state_is_not_given_an_srh_factor():
+    # only q = +2 and 0 computed (as in the demo family): ε(+2/0) exchanges two electrons, U is unknown
+    states = [ChargeState(2, -10.0), ChargeState(0, -8.0)]
+    d = formation_energies(states, {}, vbm=0.0, gap=3.0, exchanged={}, host_total_energy=-12.0)
+    [t] = d.transitions
+    assert t.electrons == 2 and t.u is None and t.one_electron == ()
+    assert any("intermediate charge state(s) [1] were not computed" in n for n in d.notes)
+    from orbtool.levels import DefectLevels, Semiconductor, TrapRecombination
+    rec = TrapRecombination(Semiconductor.from_masses(3.0, 0.3, 0.3), tau_n=1e-6, tau_p=1e-6)
+    dl = DefectLevels.build("V", diagram=d, recombination=rec)
+    assert dl.entries[0].srh_ratio is None and "SRH not computed" in dl.entries[0].note
 
 
 def test_levels_outside_gap_are_reported_not_clipped():

@@ -172,3 +172,25 @@ def test_n1_equals_band_edge_form_and_wide_gap_is_stable():
     with np.errstate(over="raise", invalid="raise", divide="raise"):
         r = cold.midgap_ratio(np.array([0.1, 3.0, 5.9]))
     assert np.all(np.isfinite(r)) and cold.material.ni == 0.0
+
+
+def test_depletion_region_generates_at_the_shockley_read_rate():
+    """n = p = 0 (a depletion region): U = −n_i² / (τ_p n₁ + τ_n p₁) = −n_i / (τ_p e^{x} + τ_n e^{−x}),
+    x = (E_t − E_i)/kT — the Shockley–Read rate (Phys. Rev. 87, 835 (1952)) with n = p = 0, the
+    generation rate of Sze & Ng, *Physics of Semiconductor Devices* (3rd ed.), ch. 2 [from memory];
+    generation lifetime τ_g = n_i/|U|."""
+    m = Semiconductor.from_densities(SI_GAP, SI_NC, SI_NV, 300.0, ni=SI_NI)
+    rec = TrapRecombination(m, tau_n=1e-6, tau_p=3e-6, n=0.0, p=0.0)
+    assert rec.regime == "generation"
+    kt = KB * 300.0
+    for et in (0.3, m.intrinsic_level, 0.8):
+        x = (et - m.intrinsic_level) / kt
+        by_hand = -SI_NI / (3e-6 * math.exp(x) + 1e-6 * math.exp(-x))
+        assert float(rec.rate(et)) == pytest.approx(by_hand, rel=1e-12)
+        assert float(rec.lifetime(et)) == pytest.approx(3e-6 * math.exp(x) + 1e-6 * math.exp(-x), rel=1e-12)
+    assert 0 < float(rec.midgap_ratio(0.3)) < 1
+    assert "generation" in rec.summary()
+    with pytest.raises(ModelError, match="both"):
+        TrapRecombination(m, tau_n=1e-6, tau_p=1e-6, n=0.0)
+    with pytest.raises(ModelError, match="non-negative"):
+        TrapRecombination(m, tau_n=1e-6, tau_p=1e-6, n=-1.0, p=0.0)

@@ -23,7 +23,7 @@ from ase import Atoms
 from pythtb import tb_model
 
 from orbtool.analysis.alignment import align
-from orbtool.analysis.moments import neighbour_moments
+from orbtool.analysis.shell_moments import neighbour_moments
 from orbtool.analysis.states import NoGapError, band_edges, in_gap_states
 from orbtool.case import DefectCase
 from orbtool.errors import GeometryError, InputFormatError, OrbtoolError

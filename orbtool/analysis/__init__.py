@@ -16,8 +16,8 @@ _LAZY = {
     "SiteMatch": "matching", "site_neighbours": "periodic", "minimum_image": "periodic",
     "symmetry_adapted_modes": "distortions",
     # states
-    "band_edges": "states", "in_gap_states": "states", "BandEdges": "states", "DefectState": "states",
-    "band_localisation": "edges",
+    "band_edges": "states", "in_gap_states": "states", "multiplets": "states", "BandEdges": "states",
+    "DefectState": "states", "band_localisation": "edges",
     "align": "alignment", "Alignment": "alignment",
     # density
     "partition_spheres": "density", "partition_voronoi": "density", "localisation": "density",
@@ -25,8 +25,8 @@ _LAZY = {
     "partition": "density", "Partition": "density", "Localisation": "density",
     "compare_routes": "character", "RouteComparison": "character",
     # moments and recursion
-    "pdos_moments": "moments", "compare_moments": "moments", "recursion_coefficients": "recursion",
-    "dos_moments": "moments", "channel_moments": "moments", "neighbour_moments": "moments",
+    "pdos_moments": "moments", "compare_moments": "shell_moments", "recursion_coefficients": "recursion",
+    "dos_moments": "moments", "channel_moments": "moments", "neighbour_moments": "shell_moments",
     "MomentComparison": "moments", "Recursion": "recursion",
 }
 
@@ -37,21 +37,7 @@ def __getattr__(name: str):
     mod = _LAZY.get(name)
     if mod is None:
         raise AttributeError(f"module 'orbtool.analysis' has no attribute {name!r}")
-    try:
-        value = getattr(importlib.import_module(f"orbtool.analysis.{mod}"), name)
-    except AttributeError:
-        # the name may live in a sibling module; search the analysis modules once
-        for other in ("geometry", "vacancy_site", "states", "alignment", "density", "moments", "recursion",
-                      "character"):
-            try:
-                m = importlib.import_module(f"orbtool.analysis.{other}")
-            except ImportError:
-                continue
-            if hasattr(m, name):
-                value = getattr(m, name)
-                break
-        else:
-            raise
+    value = getattr(importlib.import_module(f"orbtool.analysis.{mod}"), name)  # the table is the only truth
     globals()[name] = value
     return value
 

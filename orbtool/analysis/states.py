@@ -2,10 +2,17 @@
 
 * :func:`band_edges` — VBM, CBM and gap (spin-resolved) from band energies
   and occupations, or from a projected/total DOS with a stated threshold.
-* :func:`in_gap_states` — every band of the defect cell whose k-averaged
+* :func:`in_gap_states` — every level of the defect cell whose k-averaged
   energy, put on the host scale by :func:`~orbtool.analysis.alignment.align`,
   lies inside (VBM + tol, CBM − tol), with its occupation, dispersion over k
   and its weights on atoms, orbitals and neighbour shells.
+
+A degenerate multiplet is one level: its bands (degenerate at Γ) are grouped
+and every weight is taken from the sum of their projectors, Σ_b |⟨φ|ψ_b⟩|²,
+which does not depend on the basis the eigensolver chose inside the degenerate
+subspace (any orthogonal rotation leaves it unchanged); where a band is
+degenerate with others at another k-point it contributes its fair share of
+that block. One eigenvector of a multiplet is never used alone.
 """
 
 from __future__ import annotations
@@ -19,7 +26,8 @@ from ._records import Record
 from .alignment import Alignment, align, resolve_site
 from .edges import BandEdges, NoGapError, band_edges, band_localisation
 
-__all__ = ["NoGapError", "BandEdges", "band_edges", "band_localisation", "DefectState", "in_gap_states", "Alignment",
+__all__ = ["NoGapError", "BandEdges", "band_edges", "band_localisation", "DefectState", "in_gap_states", "multiplets",
+           "Alignment",
            "align"]
 
 _L_NAMES = "spdf"
@@ -28,22 +36,27 @@ _L_NAMES = "spdf"
 # ---------------------------------------------------------------- in-gap states
 @dataclass(frozen=True, eq=False)
 class DefectState(Record):
-    """One band of the defect cell inside the host gap.
+    """One level of the defect cell inside the host gap: a band, or a whole
+    degenerate multiplet of bands (then every weight is that of the sum of
+    the multiplet's projectors).
 
     Attributes
     ----------
     energy : float
-        k-weighted mean band energy on the defect cell's own scale, eV.
+        k-weighted mean band energy on the defect cell's own scale (mean over
+        the multiplet's bands), eV.
     energy_aligned : float
         The same on the host scale (``energy + alignment shift``), eV.
     above_vbm, below_cbm : float
         ``energy_aligned − VBM`` and ``CBM − energy_aligned``, eV.
     band, spin : int
-        0-based band index and spin channel in the projections.
+        0-based index of the multiplet's lowest band, and spin channel.
     occupation, max_occupation : float
-        k-weighted electrons in the band, and what it can hold.
+        k-weighted electrons in the whole multiplet, and what one band can hold
+        (the multiplet holds ``degeneracy × max_occupation``).
     dispersion : float
-        Max − min band energy over the k-points, eV (large values mean the
+        Max − min over the k-points of the band energy (of the multiplet's
+        mean energy for a multiplet), eV (large values mean the
         defect interacts with its periodic images).
     atom_weights : ndarray (natom,)
         k-weighted projection on each atom, normalised to 1.
@@ -58,6 +71,8 @@ class DefectState(Record):
         (empty without a site).
     edges : BandEdges
     provenance : tuple of str
+    bands : tuple of int
+        Every band of the multiplet (0-based); ``(band,)`` for a single band.
     """
 
     energy: float
@@ -76,6 +91,16 @@ class DefectState(Record):
     shell_fractions: dict
     edges: BandEdges
     provenance: tuple = field(default_factory=tuple)
+    bands: tuple = ()
+
+    def __post_init__(self):
+        if not self.bands:
+            object.__setattr__(self, "bands", (int(self.band),))
+
+    @property
+    def degeneracy(self) -> int:
+        """Number of bands in the multiplet."""
+        return len(self.bands)
 
     @property
     def orbital_resolved(self) -> dict:
@@ -89,11 +114,13 @@ class DefectState(Record):
 
     def summary(self) -> str:
         spin = "" if self.max_occupation == 2.0 else (" spin up" if self.spin == 0 else " spin down")
-        lines = [f"In-gap state: band {self.band}{spin}",
+        which = (f"band {self.band}" if self.degeneracy == 1 else
+                 f"{self.degeneracy}-fold multiplet, bands {', '.join(str(b) for b in self.bands)}")
+        lines = [f"In-gap state: {which}{spin}",
                  f"  energy          {self.energy:.4f} eV (defect cell)   {self.energy_aligned:.4f} eV (host scale)",
                  f"  position        VBM + {self.above_vbm:.4f} eV  /  CBM − {self.below_cbm:.4f} eV "
                  f"(gap {self.edges.gap:.4f} eV)",
-                 f"  occupation      {self.occupation:.3f} of {self.max_occupation:g}",
+                 f"  occupation      {self.occupation:.3f} of {self.degeneracy * self.max_occupation:g}",
                  f"  dispersion      {self.dispersion:.4f} eV over k",
                  "  orbitals        " + "  ".join(f"{k} {v:.3f}" for k, v in self.orbital_weights.items())]
         if self.shell_fractions:
@@ -112,8 +139,68 @@ def _shell_indices(site, shell):
     return [int(nb.index) for nb in getattr(site, attr, ())]
 
 
+def _blocks(e, degeneracy):
+    """Consecutive runs of bands closer than ``degeneracy`` (eV) in ascending energies ``e`` (nb,)."""
+    groups, cur = [], [0]
+    for b in range(1, len(e)):
+        if abs(e[b] - e[b - 1]) < degeneracy:
+            cur.append(b)
+        else:
+            groups.append(tuple(cur))
+            cur = [b]
+    groups.append(tuple(cur))
+    return groups
+
+
+def multiplets(energies, degeneracy: float = 1e-3, kpoints=None) -> list[tuple[int, ...]]:
+    """Group bands into degenerate multiplets (the levels of the defect cell).
+
+    Parameters
+    ----------
+    energies : array_like (nk, nb)
+        Band energies of one spin channel, ascending at every k, eV.
+    degeneracy : float
+        Bands closer than this (eV) are degenerate.
+    kpoints : array_like (nk, 3), optional
+        The multiplets are those at Γ (the full point-group symmetry of the site) when Γ is among
+        them, else at the first k-point. At other k-points a supercell's levels split and may touch
+        other bands; there the weights are shared fairly (see :func:`in_gap_states`).
+
+    Returns
+    -------
+    list of tuple of int
+        Consecutive band indices, every band in exactly one group.
+    """
+    e = np.atleast_2d(np.asarray(energies, float))
+    if e.shape[1] == 0:
+        return []
+    ref = 0
+    if kpoints is not None:
+        k = np.asarray(kpoints, float)
+        gamma = np.flatnonzero(np.all(np.abs(k - np.round(k)) < 1e-9, axis=1))
+        ref = int(gamma[0]) if len(gamma) else 0
+    return _blocks(e[ref], degeneracy)
+
+
+def _fair_weights(weights, energies, bands, degeneracy):
+    """Σ over ``bands`` of the projections at each k, where a band degenerate (at that k) with others
+    contributes the mean over its whole degenerate block: invariant under any rotation of the eigenvectors
+    inside a degenerate subspace, and the shares of all bands still add up to the total.
+
+    weights (nk, nb, natom, norb), energies (nk, nb) → (nk, natom, norb)."""
+    out = np.zeros((weights.shape[0],) + weights.shape[2:])
+    wanted = set(bands)
+    for k in range(weights.shape[0]):
+        for blk in _blocks(energies[k], degeneracy):
+            m = len(wanted.intersection(blk))
+            if m:
+                out[k] += weights[k, list(blk)].sum(axis=0) * (m / len(blk))
+    return out
+
+
 def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=None, tol: float = 0.05,
-                  threshold: float | None = None, dispersion_warning: float = 0.1) -> list[DefectState]:
+                  threshold: float | None = None, dispersion_warning: float = 0.1,
+                  degeneracy: float = 1e-3) -> list[DefectState]:
     """Bands of the defect cell inside the host gap, with their character.
 
     Parameters
@@ -135,11 +222,18 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
         DOS threshold for edges from ``host_pdos`` (states/eV).
     dispersion_warning : float
         Dispersion (eV) above which a note warns that the supercell is small.
+    degeneracy : float
+        Bands closer than this (eV) at Γ form one multiplet (see
+        :func:`multiplets`); the multiplet is one DefectState whose weights come
+        from the sum of its projectors. At a k-point where one of its bands is
+        degenerate with bands outside it, that band contributes its fair share
+        (the mean over the degenerate block), so no weight depends on the
+        eigensolver's basis.
 
     Returns
     -------
     list of DefectState
-        Sorted by aligned energy; empty when no band lies in the gap.
+        Sorted by aligned energy; empty when no level lies in the gap.
     """
     proj = case.projections
     if proj is None:
@@ -184,8 +278,6 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
 
     kw = proj.kweights
     mean = np.einsum("k,skb->sb", kw, proj.energies)
-    aligned = mean + shift
-    inside = (aligned > edges.vbm + tol) & (aligned < edges.cbm - tol)
     ls = proj.orbital_ls()
     first = _shell_indices(site, 1) if has_shells else []
     second = _shell_indices(site, 2) if has_shells else []
@@ -195,29 +287,47 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
                                f"{proj.natoms} atoms of the projections: site and projections belong to different "
                                "structures", field="site")
     out = []
-    for s, b in zip(*np.nonzero(inside)):
-        s, b = int(s), int(b)
-        ao = proj.character(b, s)
-        atom_w = ao.sum(axis=1)
-        orb_w = {"s": 0.0, "p": 0.0, "d": 0.0}
-        for L in sorted(set(ls.tolist())):
-            if L >= 0:
-                orb_w[_L_NAMES[L]] = float(ao[:, ls == L].sum())
-        shells = {}
-        if has_shells:
-            f1, f2 = float(atom_w[first].sum()), float(atom_w[second].sum())
-            shells = {1: f1, 2: f2, "rest": 1.0 - f1 - f2}
-        ek = proj.energies[s, :, b]
-        disp = float(ek.max() - ek.min())
-        own = list(notes)
-        if disp > dispersion_warning:
-            own.append(f"dispersion {disp:.3f} eV > {dispersion_warning} eV: the state interacts with its periodic "
-                       "images; a larger supercell is advisable")
-        out.append(DefectState(energy=float(mean[s, b]), energy_aligned=float(aligned[s, b]),
-                               above_vbm=float(aligned[s, b] - edges.vbm), below_cbm=float(edges.cbm - aligned[s, b]),
-                               band=b, spin=s, occupation=proj.band_occupation(b, s),
-                               max_occupation=proj.max_occupation, dispersion=disp, atom_weights=atom_w,
-                               orbital_weights=orb_w, atom_orbital=ao, orbital_names=tuple(proj.orbitals),
-                               shell_fractions=shells, edges=edges, provenance=tuple(own)))
+    for s in range(proj.nspin):
+        for group in multiplets(proj.energies[s], degeneracy, proj.kpoints):
+            bands = list(group)
+            e_mean = float(mean[s, bands].mean())
+            aligned = e_mean + shift
+            if not (edges.vbm + tol < aligned < edges.cbm - tol):
+                continue
+            out.append(_level(proj, s, bands, e_mean, aligned, shift, edges, ls, first, second, has_shells, notes,
+                              dispersion_warning, degeneracy))
     out.sort(key=lambda st: (st.energy_aligned, st.spin))
     return out
+
+
+def _level(proj, s, bands, e_mean, aligned, shift, edges, ls, first, second, has_shells, notes, dispersion_warning,
+           degeneracy):
+    """One DefectState from the bands of a multiplet: weights of the sum of its projectors."""
+    fair = _fair_weights(proj.weights[s], proj.energies[s], bands, degeneracy)  # Σ_b over the multiplet, per k
+    raw = np.einsum("k,kao->ao", proj.kweights, fair)
+    tot = raw.sum()
+    ao = raw / tot if tot > 0 else raw
+    atom_w = ao.sum(axis=1)
+    orb_w = {"s": 0.0, "p": 0.0, "d": 0.0}
+    for L in sorted(set(ls.tolist())):
+        if L >= 0:
+            orb_w[_L_NAMES[L]] = float(ao[:, ls == L].sum())
+    shells = {}
+    if has_shells:
+        f1, f2 = float(atom_w[first].sum()), float(atom_w[second].sum())
+        shells = {1: f1, 2: f2, "rest": 1.0 - f1 - f2}
+    ek = proj.energies[s][:, bands]
+    disp = float(ek.mean(axis=1).max() - ek.mean(axis=1).min())
+    own = list(notes)
+    if len(bands) > 1:
+        own.append(f"{len(bands)}-fold degenerate multiplet (bands {', '.join(str(b) for b in bands)}): weights from "
+                   "the sum of its projectors, independent of the eigensolver's basis inside it")
+    if disp > dispersion_warning:
+        own.append(f"dispersion {disp:.3f} eV > {dispersion_warning} eV: the state interacts with its periodic "
+                   "images; a larger supercell is advisable")
+    occ = float(sum(proj.band_occupation(b, s) for b in bands))
+    return DefectState(energy=e_mean, energy_aligned=float(aligned), above_vbm=float(aligned - edges.vbm),
+                       below_cbm=float(edges.cbm - aligned), band=int(bands[0]), spin=int(s), occupation=occ,
+                       max_occupation=proj.max_occupation, dispersion=disp, atom_weights=atom_w,
+                       orbital_weights=orb_w, atom_orbital=ao, orbital_names=tuple(proj.orbitals),
+                       shell_fractions=shells, edges=edges, provenance=tuple(own), bands=tuple(int(b) for b in bands))

@@ -32,7 +32,8 @@ class LevelEntry:
     label : str
         ``"Kohn–Sham state"`` or ``"ε(q/q')"``.
     kind : str
-        ``"single-particle"`` or ``"thermodynamic"``.
+        ``"single-particle"``, ``"thermodynamic"`` or ``"one-electron"`` (a one-electron step of a
+        two-electron transition level).
     above_vbm, below_cbm : float
         Position, eV.
     in_gap : bool
@@ -133,17 +134,37 @@ class DefectLevels:
                          "levels are placed by their distance from the VBM")
         raw = []
         if pos is not None:
-            raw.append(("Kohn–Sham state", "single-particle", pos[0]))
+            raw.append(("Kohn–Sham state", "single-particle", pos[0], ""))
         if diagram is not None:
-            raw += [(t.label, "thermodynamic", t.above_vbm) for t in diagram.transitions]
+            for t in diagram.transitions:
+                n_el = int(getattr(t, "electrons", 1))
+                if n_el < 2:
+                    raw.append((t.label, "thermodynamic", t.above_vbm, ""))
+                    continue
+                # SRH (Shockley & Read 1952; Hall 1952) is a one-electron capture/emission formula: it is not
+                # applied to a level that exchanges two electrons at once
+                u = getattr(t, "u", None)
+                what = (f"negative U (U = {u:+.3f} eV): " if u is not None and u < 0 else
+                        (f"U = {u:+.3f} eV: " if u is not None else ""))
+                raw.append((t.label, "thermodynamic", t.above_vbm,
+                            f"{what}{n_el}-electron level: SRH not computed (the one-level formula does not apply)"))
+                for lab, e1 in getattr(t, "one_electron", ()):
+                    raw.append((lab, "one-electron", e1,
+                                "one-electron level of a negative-U centre (its middle charge state is never "
+                                "stable): SRH not computed (correlated two-electron capture)" if u is not None
+                                and u < 0 else ""))
+                if not getattr(t, "one_electron", ()):
+                    notes.append(f"{t.label}: the one-electron levels need the intermediate charge state(s); "
+                                 "recombination through this defect is not computed")
             if not diagram.transitions:
                 notes.append(f"one charge state only ({int(diagram.charges[0]):+d}): no transition level")
+            notes += [n for n in getattr(diagram, "notes", ()) if n.startswith("negative U")]
         entries = []
-        for label, kind, e in raw:
+        for label, kind, e, fixed in raw:
             inside = 0.0 <= e <= gap
             ratio = life = None
-            note = "" if inside else "outside the gap: no SRH factor"
-            if inside and recombination is not None:
+            note = fixed or ("" if inside else "outside the gap: no SRH factor")
+            if inside and recombination is not None and not fixed:
                 if 0.0 <= e <= recombination.material.gap:
                     ratio = float(recombination.midgap_ratio(e))
                     life = float(recombination.lifetime(e))

@@ -28,6 +28,7 @@ the total does not depend on η: the tests check both.
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 from scipy.special import erfc
@@ -36,7 +37,7 @@ from .._validate import as_array, check_cell
 from ..errors import ModelError
 from ..units import COULOMB
 
-__all__ = ["ewald_energy", "dielectric_tensor", "lattice_madelung_alpha"]
+__all__ = ["ewald_energy", "dielectric_tensor", "lattice_madelung_alpha", "MadelungConstant"]
 
 # largest number of (pair × image) or (charge × G) entries held at once
 _CHUNK = 2_000_000
@@ -50,8 +51,9 @@ def dielectric_tensor(dielectric, *, minimum: float | None = None, field: str = 
     dielectric : float or array_like (3, 3)
         Relative permittivity (dimensionless); a scalar means ``ε·1``.
     minimum : float, optional
-        Every eigenvalue must exceed this value (``1`` for a solid: a
-        dielectric constant ≤ 1 is not a physical screening medium).
+        Every eigenvalue must be at least this value (``1``: vacuum, ε = 1,
+        is allowed; a dielectric constant below 1 is not a static screening
+        medium). Without it the tensor must be positive definite.
     field : str
         Name used in error messages.
 
@@ -76,8 +78,9 @@ def dielectric_tensor(dielectric, *, minimum: float | None = None, field: str = 
     eps = 0.5 * (eps + eps.T)
     lam = np.linalg.eigvalsh(eps)
     floor = 0.0 if minimum is None else float(minimum)
-    if lam.min() <= floor:
-        what = "positive definite" if minimum is None else f"every principal value > {floor:g}"
+    bad = lam.min() <= 0.0 if minimum is None else lam.min() < floor * (1.0 - 1e-12)
+    if bad:
+        what = "positive definite" if minimum is None else f"every principal value ≥ {floor:g}"
         raise ModelError(f"{field}: expected {what}, got principal values "
                          f"{', '.join(f'{v:.4g}' for v in lam)}")
     return eps
@@ -205,7 +208,25 @@ def ewald_energy(cell, positions, charges, dielectric=1.0, *, eta: float | None 
     return COULOMB * (e_real + e_recip + e_self + e_bg)
 
 
-def lattice_madelung_alpha(cell, *, eta: float | None = None) -> tuple[float, float]:
+class MadelungConstant(NamedTuple):
+    """A Madelung constant with the length it refers to.
+
+    ``E = −α q² / (2 ε L)`` (Gaussian units): α is only meaningful together with ``length``
+    (here ``L = V^{1/3}``, Å); the same lattice quoted per nearest-neighbour distance has another α.
+    """
+
+    alpha: float
+    length: float
+
+    @property
+    def reference(self) -> str:
+        return f"α = {self.alpha:.6f} referred to L = V^(1/3) = {self.length:.6f} Å (E = −α q²/(2 ε L))"
+
+    def __str__(self) -> str:
+        return self.reference
+
+
+def lattice_madelung_alpha(cell, *, eta: float | None = None) -> MadelungConstant:
     """Madelung constant of a unit point charge in a neutralising background.
 
     ``E = −α q² /(2 L)`` (Gaussian units) defines α for the lattice of
@@ -215,12 +236,11 @@ def lattice_madelung_alpha(cell, *, eta: float | None = None) -> tuple[float, fl
 
     Returns
     -------
-    alpha : float
-        Dimensionless Madelung constant.
-    length : float
-        The length ``L = V^{1/3}`` it refers to, Å.
+    MadelungConstant
+        ``(alpha, length)``: the dimensionless constant and the length ``L = V^{1/3}`` (Å) it refers
+        to; ``.reference`` states both in words. Unpacks as a pair.
     """
     cell = check_cell(cell, None)
     length = float(np.linalg.det(cell)) ** (1.0 / 3.0)
     e = ewald_energy(cell, np.zeros((1, 3)), [1.0], 1.0, eta=eta)
-    return -2.0 * length * e / COULOMB, length
+    return MadelungConstant(-2.0 * length * e / COULOMB, length)

@@ -45,6 +45,14 @@ class TransitionLevel:
         Position below the CBM, eV (``gap − above_vbm``).
     in_gap : bool
         Whether ``0 ≤ above_vbm ≤ gap``.
+    one_electron : tuple of (str, float)
+        For a transition over more than one electron (``q − q' ≥ 2``): the one-electron levels
+        ε(q/q−1), ε(q−1/q−2), … (label, eV above the VBM) when every intermediate charge state
+        was computed; empty otherwise.
+    u : float or None
+        For ``q − q' = 2`` with the intermediate state computed: the effective correlation energy
+        ``U = ε(q−1/q−2) − ε(q/q−1)`` (eV); negative when the intermediate state is never the most
+        stable (negative U; Freysoldt et al., Rev. Mod. Phys. 86, 253 (2014), sec. II.C).
     """
 
     charge_from: int
@@ -52,6 +60,17 @@ class TransitionLevel:
     above_vbm: float
     below_cbm: float
     in_gap: bool
+    one_electron: tuple = ()
+    u: float | None = None
+
+    @property
+    def electrons(self) -> int:
+        """Electrons exchanged at the level (``q − q'``)."""
+        return int(self.charge_from) - int(self.charge_to)
+
+    @property
+    def negative_u(self) -> bool:
+        return self.u is not None and self.u < 0
 
     @property
     def label(self) -> str:
@@ -321,9 +340,26 @@ def formation_energies(states, chemical_potentials, *, vbm: float, gap: float, e
     e_arr = np.array(offsets)[order]
     env = _lower_envelope(q_arr, e_arr)
     transitions = []
+    by_q = {int(q): float(e) for q, e in zip(q_arr, e_arr)}
     for (q1, _, x), (q2, _, _) in zip(env[:-1], env[1:]):
         inside = -1e-12 <= x <= gap + 1e-12
-        transitions.append(TransitionLevel(q1, q2, x, gap - x, inside))
+        q1, q2 = int(q1), int(q2)
+        steps, u = (), None
+        if q1 - q2 >= 2:
+            chain = list(range(q1, q2 - 1, -1))
+            if all(q in by_q for q in chain):
+                # ε(q/q−1) where E_f(q) = E_f(q−1): E(q) + q E_F = E(q−1) + (q−1) E_F
+                steps = tuple((f"ε({_qstr(a)}/{_qstr(a - 1)})", by_q[a - 1] - by_q[a]) for a in chain[:-1])
+                if len(steps) == 2:
+                    u = steps[1][1] - steps[0][1]
+                    notes.append(f"negative U: ε({_qstr(q1)}/{_qstr(q2)}) is a two-electron level because "
+                                 f"q = {_qstr(q1 - 1)} is never the most stable; U = {steps[1][0]} − {steps[0][0]} "
+                                 f"= {u:+.3f} eV")
+            else:
+                missing = [q for q in chain[1:-1] if q not in by_q]
+                notes.append(f"ε({_qstr(q1)}/{_qstr(q2)}) exchanges {q1 - q2} electrons; intermediate charge "
+                             f"state(s) {missing} were not computed, so its one-electron levels (and U) are unknown")
+        transitions.append(TransitionLevel(q1, q2, x, gap - x, inside, steps, u))
         if not inside:
             side, lost = ("below the VBM", q1) if x < 0 else ("above the CBM", q2)
             notes.append(f"{transitions[-1].label} lies {side} ({x:+.4f} eV from the VBM): "

@@ -215,6 +215,12 @@ class TrapRecombination:
         Net donor density ``N_D − N_A``, cm⁻³ (negative for p-type).
     injection : float
         Excess carrier density ``Δn = Δp``, cm⁻³.
+    n, p : float, optional
+        Carrier densities given directly, cm⁻³ (both or neither; they replace
+        doping and injection). ``n = p = 0`` is a depletion region: ``np < n_i²``
+        and the trap *generates* carriers, ``U = −n_i/(τ_p e^{x} + τ_n e^{−x})``
+        with ``x = (E_t − E_i)/kT`` (the Shockley–Read rate with n = p = 0; Sze & Ng,
+        ch. 2, generation in a depletion region).
     """
 
     material: Semiconductor
@@ -222,11 +228,21 @@ class TrapRecombination:
     tau_p: float
     doping: float = 0.0
     injection: float = 1e12
+    n: float | None = None
+    p: float | None = None
 
     def __post_init__(self):
         _positive(self.tau_n, "tau_n")
         _positive(self.tau_p, "tau_p")
-        _positive(self.injection, "injection")
+        if (self.n is None) != (self.p is None):
+            raise ModelError("give both carrier densities n and p (cm⁻³), or neither")
+        if self.n is None:
+            _positive(self.injection, "injection")
+        else:
+            for name in ("n", "p"):
+                v = float(getattr(self, name))
+                if not (math.isfinite(v) and v >= 0):
+                    raise ModelError(f"{name} must be a finite, non-negative density (cm⁻³), got {v!r}")
         if not math.isfinite(float(self.doping)):
             raise ModelError("doping must be finite")
 
@@ -241,9 +257,21 @@ class TrapRecombination:
 
     @property
     def carriers(self) -> tuple[float, float]:
-        """``(n, p) = (n0 + Δn, p0 + Δn)``, cm⁻³."""
+        """``(n, p)``, cm⁻³: as given, else ``(n0 + Δn, p0 + Δn)``."""
+        if self.n is not None:
+            return float(self.n), float(self.p)
         n0, p0 = self.material.equilibrium_carriers(self.doping)
         return n0 + self.injection, p0 + self.injection
+
+    @property
+    def regime(self) -> str:
+        """``"recombination"`` (np > n_i²), ``"generation"`` (np < n_i², e.g. a depletion region) or
+        ``"equilibrium"``."""
+        n, p = self.carriers
+        ni2 = self.material.ni ** 2
+        if n * p > ni2 * (1 + 1e-12):
+            return "recombination"
+        return "generation" if n * p < ni2 * (1 - 1e-12) else "equilibrium"
 
     def rate(self, above_vbm):
         """``U`` (cm⁻³ s⁻¹) for trap level(s) ``above_vbm`` (eV)."""
@@ -253,8 +281,16 @@ class TrapRecombination:
         return _rate(n, p, m.ni, m.log_ni, (e - m.intrinsic_level) / m.kt, self.tau_n, self.tau_p)
 
     def lifetime(self, above_vbm):
-        """SRH lifetime ``Δn / U``, s."""
-        return self.injection / self.rate(above_vbm)
+        """SRH lifetime, s: ``Δn / U`` under injection; for generation (np < n_i²) the generation
+        lifetime ``τ_g = n_i / |U|`` (Sze & Ng, ch. 2)."""
+        u = self.rate(above_vbm)
+        regime = self.regime
+        if regime == "generation":
+            return self.material.ni / np.abs(u)
+        if self.n is not None:
+            raise ModelError(f"a recombination lifetime needs the excess density: with n, p given ({regime}) use "
+                             "rate() (cm⁻³ s⁻¹), or give doping and injection instead")
+        return self.injection / u
 
     def midgap_ratio(self, above_vbm):
         """``U(E_t)/U(E_i)``: the rate relative to a trap at the intrinsic level.
@@ -269,7 +305,7 @@ class TrapRecombination:
         e = np.linspace(0.0, self.material.gap, int(points))
         u = self.rate(e)
         u_mid = self.rate(self.material.intrinsic_level)
-        return LifetimeScan(above_vbm=e, lifetime=self.injection / u, ratio=u / u_mid)
+        return LifetimeScan(above_vbm=e, lifetime=self.lifetime(e), ratio=u / u_mid)
 
     def summary(self) -> str:
         """The conditions in one block."""
@@ -278,6 +314,8 @@ class TrapRecombination:
         return "\n".join([
             f"SRH conditions at {m.temperature:g} K: E_g = {m.gap:.3f} eV, E_i = {m.intrinsic_level:.4f} eV above VBM",
             f"  N_c = {m.nc:.3e}, N_v = {m.nv:.3e}, n_i = {m.ni:.3e} cm^-3 ({m.ni_origin})",
-            f"  doping N_D − N_A = {self.doping:.3e} cm^-3, injection Δn = {self.injection:.3e} cm^-3",
+            (f"  carriers given: {self.regime}" if self.n is not None else
+             f"  doping N_D − N_A = {self.doping:.3e} cm^-3, injection Δn = {self.injection:.3e} cm^-3"),
             f"  n = {n:.3e}, p = {p:.3e} cm^-3;  τ_n = {self.tau_n:.3e} s, τ_p = {self.tau_p:.3e} s",
-            f"  mid-gap (E_i) trap lifetime {float(self.lifetime(m.intrinsic_level)):.3e} s"])
+            f"  mid-gap (E_i) trap {'generation ' if self.regime == 'generation' else ''}lifetime "
+            f"{float(self.lifetime(m.intrinsic_level)):.3e} s"])

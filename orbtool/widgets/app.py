@@ -22,13 +22,29 @@ __all__ = ["App", "fit_case"]
 _TABS = ("Load", "Structure", "PDOS", "Level explorer", "Family")
 
 
-def fit_case(case, site, state):
-    """Default model for one case: the hybrid dangling-orbital cluster
-    fitted to that case's state (:func:`orbtool.tb.targets_from_case`)."""
-    from .. import tb
+def fit_case(case, site=None, state=None):
+    """The per-case model of one case, chosen and fitted exactly as the
+    pipeline does (:func:`orbtool.family.case_story`); ``site`` and ``state``
+    are accepted for compatibility and must be the case's own (the story
+    finds them by its one rule)."""
+    from ..family import case_story
 
-    model = tb.ClusterModel.around(site, orbitals="hybrid")
-    return tb.fit(model, tb.targets_from_case(case, site, state))
+    story = case_story(case)
+    if story.model is None:
+        raise ValueError(f"{case.name}: no model: " + "; ".join(story.notes))
+    return story.model.fit
+
+
+def _story(app, case, a):
+    """The case's :class:`orbtool.story.CaseStory`, computed once (the app formats it, never refits)."""
+    from ..case import Family
+    from ..family import FamilyAnalysis
+
+    if app.family_analysis is not None:
+        return app.family_analysis.story(case.name)
+    if getattr(app, "_single", None) is None or app._single.results[0] is not a:
+        app._single = FamilyAnalysis(Family((case,), name=case.name), [a])
+    return app._single.story(case.name)
 
 
 def _fallback_analysis(case, err):
@@ -41,7 +57,9 @@ def _fallback_analysis(case, err):
     ctx, err2 = attempt(case_context, case)
     site = ctx["site"] if ctx else None
     states = ctx["states"] if ctx else []
-    state = max(states, key=lambda s: s.shell_fractions.get(1, 0.0)) if states else None
+    from ..story import choose_defect_state
+
+    state = choose_defect_state(states)
     return SimpleNamespace(name=case.name, site=site, states=states, state=state,
                            error=f"case summary incomplete: {err}", ok=site is not None)
 
@@ -78,7 +96,7 @@ class App:
         self.fit = fit
         self._given_analysis = analysis
         self.family = self.family_analysis = None
-        self.case = self.analysis = None
+        self.case = self.analysis = self.story = None
         self.structure = self.pdos = self.levels = self.board = None
         self.loader = Loader(on_load=self._loaded)
         self.header = w.HTML()
@@ -125,8 +143,10 @@ class App:
             fa = analyze_family(family, workers=1, progress=False)
         self.family, self.family_analysis = family, fa
         if self.fit is None:
-            fit, err = attempt(fa.shared_fit)
-            self._fit_note = None if err is None else f"no shared fit: {err}"
+            fit = fa.fit_result
+            if fit is None:
+                fit, err = attempt(fa.shared_fit)
+                self._fit_note = None if err is None else f"no shared fit: {err}"
             self._family_fit = fit
         else:
             self._family_fit = self.fit
@@ -238,25 +258,25 @@ class App:
     def _levels_tab(self, case, a):
         from .levels import LevelExplorer
 
-        fit, err, which = self.fit, None, None
-        if self.family_analysis is not None and self.fit is None:
-            fit = self._family_fit
-            err = getattr(self, "_fit_note", None)
-            fitted = self.family_analysis.fit_cases
-            which = case.name if case.name in fitted else None
-            if fit is not None and which is None:
-                err = f"{case.name} is not part of the shared fit (no in-gap state in the fitted charge state)"
-                fit = None
-        elif fit is None:
-            if a.site is None or a.state is None:
+        fit, err, which, story = self.fit, None, None, None
+        if fit is not None and self.family_analysis is not None:
+            which = case.name if case.name in self.family_analysis.fit_cases else None
+        if fit is None:
+            if a.site is None or a.state is None or not getattr(a, "ok", True):
                 err = a.error or "no in-gap state to fit"
             else:
-                fit, err = attempt(fit_case, case, a.site, a.state)
+                story, err = attempt(_story, self, case, a)
+                if story is not None:
+                    self.story = story
+                    if story.model is None:
+                        err = "; ".join(story.notes) or getattr(self, "_fit_note", None) or "no model"
+                    else:
+                        fit, which = story.model.fit, case.name
         if fit is None:
             self.levels = None
             self.panes["Level explorer"].children = [_note(f"no model to explore: {err}")]
             return
-        view, err = attempt(LevelExplorer, fit, a.site, which)
+        view, err = attempt(LevelExplorer, fit, a.site, which, story=story)
         self.levels = view
         self.panes["Level explorer"].children = [view.widget] if view else [_note(err, "error")]
 

@@ -167,6 +167,11 @@ class LevelExplorer:
     swaps : list of str, optional
         Elements offered for the cation swap (default: same valence count
         as the first-shell element(s), with term values available).
+    story : orbtool.story.CaseStory, optional
+        The case's one account (what the pipeline and the reports show):
+        when given, the swaps offered are the story's and the uncoupled
+        dangling-orbital energy is the story's (the explorer only moves it
+        by what a knob changes).
 
     Attributes
     ----------
@@ -175,8 +180,13 @@ class LevelExplorer:
     prediction : Prediction      the latest successful prediction.
     """
 
-    def __init__(self, fit, site=None, case=None, *, recombination=None, swaps=None, window: float = 2.0):
+    def __init__(self, fit, site=None, case=None, *, recombination=None, swaps=None, window: float = 2.0,
+                 story=None):
         self.fit, self.site, self.case = fit, site, case
+        self.story = story
+        account = getattr(story, "model", None)
+        if account is not None and swaps is None:
+            swaps = [pair.split("→")[1] for pair in account.swaps]
         self.recombination = recombination
         self.window = window
         self._dangling: dict = {}
@@ -291,6 +301,12 @@ class LevelExplorer:
             p, err = attempt(self._predict, None, swap, 1e-9, 0.0)
             self._dangling[key] = float(p.level) if p is not None else None
         e = self._dangling[key]
+        account = getattr(self.story, "model", None)
+        if account is not None and e is not None:  # the story's value, moved by what the swap changes
+            if None not in self._dangling:
+                self._dangling_energy(None, 0.0)
+            base = self._dangling[None]
+            e = account.dangling_energy + (e - base if base is not None else 0.0)
         return None if e is None else e + onsite_shift
 
     def set(self, **knobs) -> list[str]:

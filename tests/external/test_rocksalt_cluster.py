@@ -147,7 +147,7 @@ def test_first_shell_pdos_variance_drops_when_the_anion_is_removed(cases, sites)
     −1.0 eV² for Li s, −4.7 eV² for Li p). A window cut at the F 2p band
     (−15 … 20 eV) flips the s channel (+0.2 eV²): windows break the theorem,
     so none is used here."""
-    from orbtool.analysis.moments import neighbour_moments
+    from orbtool.analysis import neighbour_moments
     mc = neighbour_moments(cases["vac"], sites["vac"])
     first = {nb.index for nb in sites["vac"].first_shell}
     assert {r.atom for r in mc.rows} == first
