@@ -27,8 +27,8 @@ TOLERANCE = 0.15  # eV, the issue's acceptance
 #: rows that fail the acceptance today: row name -> (engine shift, predicted shift) measured, eV
 FAILING_TODAY = {
     "pyscf Li→Na (Li14F12⁺ cluster)": (-0.428, +0.278),
-    "ZnS→CdS V_S": (-0.312, +0.932),
-    "NaCl→KCl V_Cl": (+0.242, +1.449),
+    "ZnS→CdS V_S": (-0.312, +0.860),
+    "NaCl→KCl V_Cl": (+0.242, +0.833),
 }
 
 DEFECTS = [c for c in harness.EXPECTED_CASES if "/V_" in c]
@@ -78,7 +78,10 @@ def test_engine_defect_state_reproduced(observed, case):
     assert o.degeneracy == len(st["bands"])
     assert o.energy == pytest.approx(st["energy"], abs=1e-4)
     assert o.occupation == pytest.approx(st["occupation"], abs=0.01)
-    assert 0.0 < o.above_vbm < o.states[0].edges.gap
+    # in the gap, or resonant just outside it (ZnS at 0.95 d: the a1 level falls 0.09 eV below the VBM), within
+    # the window orbtool.story allows for a level chosen by character
+    from orbtool.story import RESONANT_WINDOW
+    assert -RESONANT_WINDOW < o.above_vbm < o.states[0].edges.gap + RESONANT_WINDOW
 
 
 def test_cd_caution_for_the_zns_cds_pair():
