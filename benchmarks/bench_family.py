@@ -24,7 +24,7 @@ here = Path(__file__).parent
 
 _CHILD = r"""
 import json, os, resource, sys, time
-from orbtool.family import analyze_family
+from orbtool.batch import analyze_family
 manifest, workers, route = sys.argv[1], int(sys.argv[2]), sys.argv[3]
 t0 = time.perf_counter()
 if route == "parent":

@@ -38,7 +38,7 @@ _LAZY = {
     "case_from_calculator": "orbtool.io.calculator",
     "read_energy": "orbtool.io",
     "save_session": "orbtool.session",
-    "analyze_family": "orbtool.family",
+    "analyze_family": "orbtool.batch",
     "analyze_case": "orbtool.family",
     "locate_vacancy": "orbtool.analysis",
     "in_gap_states": "orbtool.analysis",

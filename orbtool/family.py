@@ -20,10 +20,9 @@ from typing import Any
 
 import numpy as np
 
-from .batch import analyze_family  # the parallel machinery lives in orbtool.batch
 from .errors import OrbtoolError
 
-__all__ = ["CaseAnalysis", "FamilyAnalysis", "analyze_case", "analyze_family", "case_story", "TOXIC_ELEMENTS",
+__all__ = ["CaseAnalysis", "FamilyAnalysis", "analyze_case", "case_story", "TOXIC_ELEMENTS",
            "clean_for_json"]
 
 #: elements whose presence adds a handling caution to reports (common practice: the
@@ -488,3 +487,12 @@ def clean_for_json(o):
     if hasattr(o, "to_dict"):
         return clean_for_json(o.to_dict())
     return str(o)
+
+
+def __getattr__(name):
+    # ``orbtool.family.analyze_family`` stays importable; the batch runner lives one layer up, in
+    # orbtool.batch (which builds on this module), so it is resolved on first use, not imported here
+    if name == "analyze_family":
+        import importlib
+        return importlib.import_module("orbtool.batch").analyze_family
+    raise AttributeError(f"module 'orbtool.family' has no attribute {name!r}")

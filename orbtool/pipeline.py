@@ -29,7 +29,7 @@ def _say(quiet, msg):
 
 
 def _analyse(manifest, workers, scheduler, quiet):
-    from .family import analyze_family
+    from .batch import analyze_family
     from .io import load_family
     fam = load_family(manifest)
     _say(quiet, f"family {fam.name!r}: {len(fam)} cases from {manifest}")

@@ -20,8 +20,7 @@ from pathlib import Path
 
 import pytest
 
-from orbtool.batch import full_case
-from orbtool.family import analyze_family
+from orbtool.batch import analyze_family, full_case
 from orbtool.io import load_family
 from orbtool.pipeline import demo_manifest
 
@@ -116,7 +115,7 @@ def test_unreachable_scheduler_is_a_clear_error():
 _SCRIPT = textwrap.dedent('''
     import json, os, sys
     from dask.distributed import Client, LocalCluster
-    from orbtool.family import analyze_family
+    from orbtool.batch import analyze_family
     if __name__ == "__main__":
         with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cl, \\
                 Client(cl) as client:

@@ -19,7 +19,7 @@ import xml.etree.ElementTree as ET
 
 import pytest
 
-from orbtool.family import analyze_family
+from orbtool.batch import analyze_family
 from orbtool.io import load_family
 from orbtool.pipeline import demo_manifest, run_analysis
 

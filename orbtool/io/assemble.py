@@ -49,7 +49,7 @@ def _ase_format(f: Path) -> str | None:
 
 
 def _has_eigenvalues(calc) -> bool:
-    from .calculator import offers_eigenvalues
+    from ._calc_bands import offers_eigenvalues
     return offers_eigenvalues(calc)
 
 
@@ -271,7 +271,7 @@ def _run_of(obj, grids, units, who):
 
 def _calculator_projections(run: RunData, who: str):
     if run.projections is None and run.calculator is not None:
-        from .calculator import projections_from_calculator
+        from ._calc_bands import projections_from_calculator
         try:
             run.projections = projections_from_calculator(run.calculator, run.structure, source=str(run.folder))
             run.notes.append("band energies and occupations from the engine output's calculator "

@@ -135,7 +135,7 @@ class App:
 
     def show_family(self, family):
         """Analyse every case, fit one shared model, fill the board; show the first case."""
-        from ..family import analyze_family
+        from ..batch import analyze_family
         from .family import FamilyBoard, board_rows
 
         fa = self._given_analysis
