@@ -5,7 +5,7 @@ BIN := $(VENV)/bin
 STAMP_DEMO := $(VENV)/.stamp-demo
 STAMP_TEST := $(VENV)/.stamp-test
 
-.PHONY: demo test lint bench demo-data external-data periodic-data clean-venv
+.PHONY: demo test lint bench bench-family demo-data external-data periodic-data harness screenshots clean-venv
 
 $(BIN)/python:
 	$(PY) -m venv $(VENV)
@@ -32,6 +32,10 @@ lint: $(STAMP_TEST)
 bench: $(STAMP_TEST)
 	$(BIN)/python benchmarks/run_all.py
 
+# synthetic families of 14/100/1000 cases (slow: minutes to an hour on 2 cores)
+bench-family: $(STAMP_TEST)
+	$(BIN)/python benchmarks/bench_family.py
+
 demo-data: $(STAMP_DEMO)
 	$(BIN)/python -m orbtool.demo.generate
 
@@ -44,6 +48,15 @@ external-data: $(STAMP_TEST)
 PERIODIC := OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1 /usr/bin/python3 tests/external/periodic/generate.py --queue
 periodic-data:
 	$(PERIODIC) & $(PERIODIC) & wait
+
+# the model's predictions against the periodic GPAW family and the pyscf clusters; rewrites the table in
+# tests/external/periodic/README.md and orbtool/data/knob_validation.json (read by fit summaries)
+harness: $(STAMP_TEST)
+	$(BIN)/python tests/external/periodic/harness.py --write
+
+# re-runs the browser tests and copies the chosen screenshots to docs/screenshots/ and sample_outputs/
+screenshots: $(STAMP_TEST)
+	$(BIN)/python tests/browser/screenshots.py
 
 clean-venv:
 	rm -rf $(VENV)
