@@ -28,7 +28,7 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .errors import InputFormatError, OrbtoolError
+from .errors import OrbtoolError
 
 __all__ = ["analyze_family", "CaseSpec", "plan_family", "full_case", "CONNECT_TIMEOUT"]
 
@@ -47,6 +47,9 @@ class CaseSpec:
     host: str | None = None
     host_path: str | None = None
     grids: bool = True
+    units: str = "auto"          # how the case's cubes are read (manifest ``units``)
+    host_units: str = "auto"
+    edges: object = None         # true band edges of the host (path or gap, manifest ``edges``)
 
 
 def plan_family(manifest_path, *, grids: bool = True):
@@ -57,22 +60,19 @@ def plan_family(manifest_path, *, grids: bool = True):
     meta). Schema problems raise one :class:`InputFormatError` listing all of
     them, exactly as :func:`orbtool.io.load_family` does.
     """
-    from .io.manifest import LABEL_KEYS, check_manifest
+    from .io.manifest import case_sources, check_manifest, raise_manifest_problems
 
     path = Path(manifest_path)
     data, problems, _ = check_manifest(path)
-    if problems:
-        problems.sort(key=lambda p: (p[0] is None, p[0] or 0))
-        body = "\n".join(f"  - line {ln}: {msg}" if ln else f"  - {msg}" for ln, msg in problems)
-        raise InputFormatError(path, problems[0][0], f"{len(problems)} problem(s) in the manifest:\n{body}")
+    raise_manifest_problems(path, problems)
     base = path.parent
     hosts = {h["name"]: str(base / h["path"]) for h in data.get("host", [])}
     specs = []
-    for c in data.get("case", []):
-        labels = {k: c[k] for k in LABEL_KEYS if k in c}
-        labels.update(c.get("labels", {}))
+    for c, labels, units, host_units, edges in case_sources(data, base):
         specs.append(CaseSpec(name=c["name"], path=str(base / c["path"]), charge=int(c.get("charge", 0)),
-                              labels=labels, host=c.get("host"), host_path=hosts.get(c.get("host")), grids=grids))
+                              labels=labels, host=c.get("host"), host_path=hosts.get(c.get("host")), grids=grids,
+                              units=units, host_units=host_units, edges=None if edges is None else
+                              (str(edges) if isinstance(edges, Path) else edges)))
     fam = data.get("family", {})
     info = {"name": fam.get("name", path.stem), "references": dict(data.get("references", {})),
             "source": str(path), "meta": {"description": fam.get("description", ""),
@@ -88,12 +88,12 @@ def _host_run(spec: CaseSpec):
     from .io.assemble import scan_run
     p = Path(spec.host_path)
     st = p.stat()
-    key = (str(p.resolve()), spec.grids, st.st_mtime_ns)
+    key = (str(p.resolve()), spec.grids, spec.host_units, st.st_mtime_ns)
     run = _HOST_RUNS.get(key)
     if run is None:
         if len(_HOST_RUNS) > 8:  # a family has a few hosts; keep the worker's memory bounded anyway
             _HOST_RUNS.clear()
-        run = _HOST_RUNS[key] = scan_run(p, grids=spec.grids)
+        run = _HOST_RUNS[key] = scan_run(p, grids=spec.grids, units=spec.host_units)
     return run
 
 
@@ -113,7 +113,7 @@ def _load(spec: CaseSpec):
     from .io.assemble import load_case
     hr = _host_run(spec) if spec.host_path else None
     case = load_case(spec.path, charge=spec.charge, name=spec.name, labels=spec.labels, grids=spec.grids,
-                     _host_run=hr)
+                     units=spec.units, edges=spec.edges, _host_run=hr)
     if hr is not None:
         case = case.replace(provenance=case.provenance + (f"host {spec.host!r} from the manifest",))
     return case

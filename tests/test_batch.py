@@ -140,3 +140,18 @@ def test_dask_localcluster_of_two_workers_reads_in_the_workers(manifest, in_pare
     assert doc["parent"] not in doc["pids"] and len(doc["pids"]) >= 1
     assert doc["readers"] == []  # the parent never imported a PROCAR/DOSCAR/CHGCAR reader
     assert doc["table"] == json.loads(json.dumps(in_parent.table(), default=str))
+
+
+def test_manifest_reading_choices_reach_the_workers(tmp_path):
+    """docs/manifest.md: ``units`` and a host's true ``edges`` apply to every case of the manifest; the
+    batch runner (cases read in workers) and load_family (read in the parent) make the same choices."""
+    from orbtool.batch import _load, plan_family
+    m = _manifest(tmp_path, ZB[:1])
+    text = m.read_text().replace('name = "zb"\n', 'name = "zb"\nunits = "bohr"\n', 1)
+    m.write_text(text.replace('[[host]]\nname = "zb"\n', '[[host]]\nname = "zb"\nedges = 1.7\n'))
+    specs, _ = plan_family(m)
+    assert (specs[0].units, specs[0].host_units, specs[0].edges) == ("bohr", "bohr", 1.7)
+    in_parent, in_worker = load_family(m, grids=False)[ZB[0][0]], _load(specs[0])
+    truth = in_parent.host_projections.meta.get("true_band_edges")
+    assert truth is not None
+    assert in_worker.host_projections.meta.get("true_band_edges") == truth

@@ -295,6 +295,30 @@ def _check_path(value, base, kind, i, at, problems):
             problems.append((at(kind, i, "path"), f"{kind} path {value!r} {what} (relative to the manifest)"))
 
 
+def raise_manifest_problems(path, problems) -> None:
+    """Raise one :class:`InputFormatError` listing every ``(line, message)`` problem (none: return)."""
+    if problems:
+        problems.sort(key=lambda p: (p[0] is None, p[0] or 0))
+        body = "\n".join(f"  - line {ln}: {msg}" if ln else f"  - {msg}" for ln, msg in problems)
+        raise InputFormatError(path, problems[0][0], f"{len(problems)} problem(s) in the manifest:\n{body}")
+
+
+def case_sources(data, base):
+    """For each ``[[case]]`` of a checked manifest: its labels, reading units and the true band edges
+    of its host (a path under ``base`` or a gap in eV), the choices :func:`load_family` and the batch
+    runner (:mod:`orbtool.batch`) both make."""
+    fam_units = data.get("family", {}).get("units", "auto")
+    hosts = {h["name"]: h for h in data.get("host", [])}
+    for c in data.get("case", []):
+        labels = {k: c[k] for k in LABEL_KEYS if k in c}
+        labels.update(c.get("labels", {}))
+        host = hosts.get(c.get("host"), {})
+        edges = host.get("edges")
+        if isinstance(edges, str):
+            edges = base / edges
+        yield c, labels, c.get("units", fam_units), host.get("units", fam_units), edges
+
+
 def load_family(manifest_path, *, grids: bool = True) -> Family:
     """Read a family manifest (TOML, see docs/manifest.md) and load every case.
 
@@ -306,26 +330,17 @@ def load_family(manifest_path, *, grids: bool = True) -> Family:
 
     path = Path(manifest_path)
     data, problems, lines = check_manifest(path)
-    if problems:
-        problems.sort(key=lambda p: (p[0] is None, p[0] or 0))
-        body = "\n".join(f"  - line {ln}: {msg}" if ln else f"  - {msg}" for ln, msg in problems)
-        raise InputFormatError(path, problems[0][0], f"{len(problems)} problem(s) in the manifest:\n{body}")
+    raise_manifest_problems(path, problems)
     base = path.parent
     host_runs = {}
     fam_units = data.get("family", {}).get("units", "auto")
     for h in data.get("host", []):
         host_runs[h["name"]] = scan_run(base / h["path"], grids=grids, units=h.get("units", fam_units))
-    hosts = {h["name"]: h for h in data.get("host", [])}
     cases = []
-    for c in data.get("case", []):
-        labels = {k: c[k] for k in LABEL_KEYS if k in c}
-        labels.update(c.get("labels", {}))
+    for c, labels, units, _, edges in case_sources(data, base):
         hr = host_runs.get(c.get("host"))
-        edges = hosts.get(c.get("host"), {}).get("edges")
-        if isinstance(edges, str):
-            edges = base / edges
         case = load_case(base / c["path"], charge=int(c.get("charge", 0)), name=c["name"], labels=labels,
-                         grids=grids, units=c.get("units", fam_units), edges=edges, _host_run=hr)
+                         grids=grids, units=units, edges=edges, _host_run=hr)
         if hr is not None:
             case = case.replace(provenance=case.provenance + (f"host {c['host']!r} from the manifest",))
         cases.append(case)
