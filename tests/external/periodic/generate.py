@@ -341,8 +341,10 @@ def run_case(case: str, out: Path, cubes: bool = True) -> dict:
     if world.rank == 0:
         (folder / "engine.json").write_text(json.dumps(record, indent=1) + "\n")
         gz = folder / "gpaw.txt.gz"
-        with open(folder / "gpaw.txt", "rb") as src, gzip.open(gz, "wb") as dst:
-            shutil.copyfileobj(src, dst)
+        text = (folder / "gpaw.txt").read_text()
+        text = text.replace(str(Path.cwd()) + os.sep, "").replace(str(Path.cwd()), ".")  # no machine paths
+        with gzip.open(gz, "wt") as dst:
+            dst.write(text)
         (folder / "gpaw.txt").unlink()
     return record
 
