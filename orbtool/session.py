@@ -41,6 +41,7 @@ from typing import Any
 import numpy as np
 
 from .errors import SessionError
+from .outputs import _pid_alive
 
 __all__ = ["save_session", "load_session", "SCHEMA_VERSION", "FORMAT_NAME", "MAX_DEPTH"]
 
@@ -192,22 +193,12 @@ def _clean_stale_temporaries(path: Path) -> None:
         if not (name.startswith(prefix) and name.endswith(_TMP_SUFFIX)):
             continue
         pid = name[len(prefix):].split(".", 1)[0]
-        if pid.isdigit() and int(pid) != os.getpid() and _alive(int(pid)):
+        if pid.isdigit() and int(pid) != os.getpid() and _pid_alive(int(pid)):
             continue  # another process is saving right now
         try:
             (folder / name).unlink()
         except OSError:
             pass
-
-
-def _alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except OSError:
-        return True
-    return True
 
 
 def save_session(path, content: Any = None, *, overwrite: bool = False, **items) -> Path:
