@@ -214,7 +214,8 @@ class ClusterModel:
                    r_d=dict(r_d or {}), modes=_modes(site, vec[: len(first)]), notes=tuple(notes),
                    host_bands=bands,
                    options={"onsite": dict(onsite or {}), "charge": charge, "electrons": electrons,
-                            "pair_cutoff": pair_cutoff, "shells": shells, "edges": edges})
+                            "pair_cutoff": pair_cutoff, "shells": shells, "edges": edges,
+                            "vacant": getattr(site, "element", None)})
 
     def with_site(self, site, charge: int | None = None) -> "ClusterModel":
         """The same settings (distance law with the same d0, term-value source, user on-site energies,

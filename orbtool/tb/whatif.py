@@ -9,6 +9,15 @@ Knobs (all relative to the fitted model of one case):
 * ``swap`` — {"Sn": "Ge"}: on-site energies of the old element replaced by the new element's term
   values from the same table (the fitted shift of the old element is kept: it absorbs the table's
   systematic error); bond lengths are those of ``geometry`` (no relaxation is implied);
+* ``swap`` with ``host_gap`` — the band gap (eV) of the host the swap makes (from a pristine-host
+  calculation of the new compound, or from the user): the dangling orbitals then keep their place
+  relative to the band edge they are made from instead of taking free-atom term values. Orbitals of
+  first-shell cations (an anion vacancy) are conduction-band states of the host: their on-site
+  energies move with the conduction-band minimum, by ``host_gap − gap`` of the fitted case (levels stay
+  referred to the VBM); orbitals of first-shell anions (a cation vacancy) are valence-band states and
+  keep their place relative to the VBM. This is the in-solid route: free-atom term values do not know
+  that, e.g., CdS has half the gap of ZnS although Cd 5s lies above Zn 4s in the free atoms (checked on
+  the periodic GPAW family, tests/external/periodic/README.md);
 * ``coupling_scale`` — multiplies every coupling; ``onsite_shift`` — eV added to the on-site energies
   of the first-shell atoms (those carrying the dangling orbitals).
 
@@ -29,7 +38,13 @@ from .elements import term_values
 from .host_bands import model_vbm
 from .symmetry import class_columns, label_levels
 
-__all__ = ["Prediction", "predict", "scan"]
+__all__ = ["Prediction", "predict", "scan", "edge_shift"]
+
+#: elements whose dangling orbitals in a compound semiconductor or insulator are conduction-band
+#: (cation) states: groups 1, 2, 12, 13 and 14 metals and the post-transition cations (common practice;
+#: the anions of groups 15–17 and O, S, Se, Te are valence-band states)
+_CATION_LIKE = ("Li", "Na", "K", "Rb", "Cs", "Be", "Mg", "Ca", "Sr", "Ba", "Zn", "Cd", "Hg", "B", "Al", "Ga",
+                "In", "Tl", "Si", "Ge", "Sn", "Pb", "Cu", "Ag", "Au", "Sc", "Y", "La", "Ti", "Zr", "Hf")
 
 
 @dataclass(frozen=True, eq=False)
@@ -71,15 +86,51 @@ def _case(fit, case):
     return name
 
 
-def _compiled(fit, case, geometry, swap):
+def edge_shift(fit, case, host_gap) -> float:
+    """On-site move (eV) of swapped first-shell orbitals when the new host's gap is known (see the
+    module docstring): ``host_gap − gap`` for cation dangling orbitals, 0 for anion ones."""
+    gap = fit.problem.by_case[case][0].gap
+    if gap is None or not np.isfinite(gap):
+        raise ModelError(f"host_gap needs the band gap of the fitted case {case!r} (Target.gap is not set)")
+    host_gap = float(host_gap)
+    if not np.isfinite(host_gap) or host_gap <= 0:
+        raise ModelError(f"host_gap must be a positive band gap in eV, got {host_gap!r}")
     model = fit.problem.models[case]
-    key = (case, tuple(sorted((swap or {}).items())))
+    first = sorted({model.elements[i] for i in np.flatnonzero(np.asarray(model.shell) == 1)})
+    return host_gap - float(gap) if _cation_like(first, model.options.get("vacant"), model.term_source) else 0.0
+
+
+def _cation_like(first, vacant, source) -> bool:
+    """True when the first-shell atoms are the cations of the compound (their dangling orbitals are
+    conduction-band states): the removed atom holds its valence electrons more tightly (a deeper valence
+    p term value, the electronegativity of the trade in Harrison's scale — W. A. Harrison, *Electronic
+    Structure and the Properties of Solids* (1980), Table 2-2); without the removed element, the list
+    of common cations."""
+    if vacant:
+        try:
+            tv_v = term_values(str(vacant), source)
+            deeper = [(term_values(el, source).p or term_values(el, source).s) > (tv_v.p or tv_v.s) for el in first]
+            return all(deeper)
+        except ModelError:
+            pass
+    return all(el in _CATION_LIKE for el in first)
+
+
+def _compiled(fit, case, geometry, swap, host_gap=None):
+    model = fit.problem.models[case]
+    key = (case, tuple(sorted((swap or {}).items())), host_gap)
+    if host_gap is not None and not swap:
+        raise ModelError("host_gap describes the host a swap makes: pass swap={old: new} with it")
     if swap:
         bad = [el for el in swap if el not in model.species]
         if bad:
             raise ModelError(f"swap names {bad} but the cluster holds {list(model.species)}")
         onsite = dict(model.onsite)
+        move = None if host_gap is None else edge_shift(fit, case, host_gap)
         for old, new in swap.items():
+            if move is not None:       # in-solid route: keep the place relative to the band edge
+                onsite[old] = tuple(float(x) + move for x in model.onsite[old])
+                continue
             tv = term_values(new, model.term_source)
             onsite[old] = (tv.s, np.nan if tv.p is None else tv.p, np.nan if tv.d is None else tv.d)
         model = replace(model, onsite=onsite, swap_map={**model.swap_map, **swap})
@@ -168,10 +219,11 @@ def verdict_for(level, sigma, gap, within):
 
 
 def predict(fit, geometry=None, swap=None, coupling_scale=1.0, onsite_shift=0.0, case=None, *, samples: int = 0,
-            labels: bool = True, shallow_within: float = 0.1, seed: int = 0) -> Prediction:
-    """Defect level for the given knobs with its uncertainty (see module docstring)."""
+            labels: bool = True, shallow_within: float = 0.1, seed: int = 0, host_gap=None) -> Prediction:
+    """Defect level for the given knobs with its uncertainty (see module docstring; ``host_gap`` in eV
+    is the gap of the host a ``swap`` makes — the in-solid route)."""
     case = _case(fit, case)
-    cc = _compiled(fit, case, geometry, swap)
+    cc = _compiled(fit, case, geometry, swap, host_gap)
     knobs = dict(coupling_scale=coupling_scale, onsite_shift=onsite_shift)
     lev, lv, vbm = _batch_levels(fit, case, cc, fit.values[None], **knobs)
     level = float(lev[0])
@@ -180,7 +232,7 @@ def predict(fit, geometry=None, swap=None, coupling_scale=1.0, onsite_shift=0.0,
     band = None
     if samples:
         band = _sampled_band(fit, case, cc, samples, seed, knobs)
-    gap = fit.problem.by_case[case][0].gap
+    gap = fit.problem.by_case[case][0].gap if host_gap is None else float(host_gap)
     cbm = float(gap) if gap is not None else float("nan")
     E = lv.energies[0] - float(np.asarray(vbm).ravel()[0])
     lab = _labels(fit, cc, lv) if labels else ["?"] * len(E)
