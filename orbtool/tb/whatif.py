@@ -9,15 +9,21 @@ Knobs (all relative to the fitted model of one case):
 * ``swap`` — {"Sn": "Ge"}: on-site energies of the old element replaced by the new element's term
   values from the same table (the fitted shift of the old element is kept: it absorbs the table's
   systematic error); bond lengths are those of ``geometry`` (no relaxation is implied);
-* ``swap`` with ``host_gap`` — the band gap (eV) of the host the swap makes (from a pristine-host
-  calculation of the new compound, or from the user): the dangling orbitals then keep their place
-  relative to the band edge they are made from instead of taking free-atom term values. Orbitals of
-  first-shell cations (an anion vacancy) are conduction-band states of the host: their on-site
-  energies move with the conduction-band minimum, by ``host_gap − gap`` of the fitted case (levels stay
-  referred to the VBM); orbitals of first-shell anions (a cation vacancy) are valence-band states and
-  keep their place relative to the VBM. This is the in-solid route: free-atom term values do not know
-  that, e.g., CdS has half the gap of ZnS although Cd 5s lies above Zn 4s in the free atoms (checked on
-  the periodic GPAW family, tests/external/periodic/README.md);
+* ``swap`` with ``host_gap`` — the in-solid route. ``host_gap`` is the band gap (eV) of the host the swap
+  makes (a pristine-host calculation of the new compound, or the user's value). Free-atom term values do
+  not know the crystal: Cd 5s lies above Zn 4s in the free atoms, yet CdS has half the gap of ZnS. So the
+  swapped orbitals are placed relative to the band edge they belong to: dangling orbitals of first-shell
+  cations (an anion vacancy) are conduction-band states, those of first-shell anions (a cation vacancy)
+  valence-band states. Their distance from that edge, ε_h − E_edge (ε_h: the dangling hybrid's energy
+  with the fitted parameters; E_edge = VBM + gap of the fitted case for cations, the VBM for anions), is a
+  coupling-made energy, so under the new host's lattice it scales like every coupling,
+  by λ = V(d0·a_B/a_A)/V(d0) (a: cube root of the cell volume, the uniform part of the change; λ = 1 when
+  no new cell is given); the edge itself moves by ``host_gap − gap`` (cations) or 0 (anions). Every
+  orbital of the swapped element moves rigidly by the resulting δ (cluster and, with edges="model",
+  host bands). In a uniform strain of a pure-coupling model this keeps the level's depth below its edge
+  in proportion to the couplings — the universal scaling of W. A. Harrison, *Electronic Structure and
+  the Properties of Solids* (1980), ch. 2. Checked on the periodic GPAW family
+  (tests/external/periodic/README.md);
 * ``coupling_scale`` — multiplies every coupling; ``onsite_shift`` — eV added to the on-site energies
   of the first-shell atoms (those carrying the dangling orbitals).
 
@@ -38,7 +44,7 @@ from .elements import term_values
 from .host_bands import model_vbm
 from .symmetry import class_columns, label_levels
 
-__all__ = ["Prediction", "predict", "scan", "edge_shift"]
+__all__ = ["Prediction", "predict", "scan", "edge_anchor"]
 
 #: elements whose dangling orbitals in a compound semiconductor or insulator are conduction-band
 #: (cation) states: groups 1, 2, 12, 13 and 14 metals and the post-transition cations (common practice;
@@ -86,18 +92,57 @@ def _case(fit, case):
     return name
 
 
-def edge_shift(fit, case, host_gap) -> float:
-    """On-site move (eV) of swapped first-shell orbitals when the new host's gap is known (see the
-    module docstring): ``host_gap − gap`` for cation dangling orbitals, 0 for anion ones."""
+def edge_anchor(fit, case, host_gap, geometry=None) -> dict:
+    """What the in-solid route needs to place swapped orbitals (see the module docstring): the fitted
+    case's gap, the new host's gap, whether the dangling orbitals are cation (conduction-band) states,
+    and the uniform length scale a_B/a_A of the new cell."""
     gap = fit.problem.by_case[case][0].gap
     if gap is None or not np.isfinite(gap):
         raise ModelError(f"host_gap needs the band gap of the fitted case {case!r} (Target.gap is not set)")
-    host_gap = float(host_gap)
+    try:
+        host_gap = float(host_gap)
+    except (TypeError, ValueError):
+        raise ModelError(f"host_gap must be a band gap in eV, got {host_gap!r}") from None
     if not np.isfinite(host_gap) or host_gap <= 0:
         raise ModelError(f"host_gap must be a positive band gap in eV, got {host_gap!r}")
     model = fit.problem.models[case]
     first = sorted({model.elements[i] for i in np.flatnonzero(np.asarray(model.shell) == 1)})
-    return host_gap - float(gap) if _cation_like(first, model.options.get("vacant"), model.term_source) else 0.0
+    scale = 1.0
+    if hasattr(geometry, "get_positions") and model.cell is not None:
+        scale = float(abs(np.linalg.det(geometry.cell[:])) / abs(np.linalg.det(model.cell))) ** (1 / 3)
+    return {"gap": float(gap), "host_gap": host_gap, "scale": scale, "elements": first,
+            "cation": _cation_like(first, model.options.get("vacant"), model.term_source)}
+
+
+def _dangling_energy(model, full, el):
+    """(B,) energy (eV, model scale) of ``el``'s dangling orbital for parameter arrays ``full``: the
+    hybrid f ε_s + (1 − f) ε_p (hybrid model) or ε_s (s, sp, spd clusters: the s-like band edge)."""
+    eps = model.onsite[el]
+    shift = np.asarray(full.get(f"shift_{el}", 0.0), dtype=float)
+    if model.orbitals == "hybrid":
+        f = np.asarray(full.get("s_fraction", model.s_fraction), dtype=float)
+        return f * eps[0] + (1 - f) * eps[1] + shift
+    return eps[0] + shift
+
+
+def _anchor_shifts(cc, full, vbm):
+    """{shift_<el>: (B,) eV} moves of the swapped elements by the in-solid route (module docstring)."""
+    a = cc.anchor
+    model = cc.model
+    x = full["q"] if model.law.kind == "exp" else full["n"]
+    d0 = model.law.d0
+    lam = (model.law.radial(d0 * a["scale"], q=x) if model.law.kind == "exp"
+           else model.law.radial(d0 * a["scale"], n=x)) / (model.law.radial(d0, q=x) if model.law.kind == "exp"
+                                                            else model.law.radial(d0, n=x))
+    edge_a = vbm + (a["gap"] if a["cation"] else 0.0)
+    edge_move = (a["host_gap"] - a["gap"]) if a["cation"] else 0.0
+    out = {}
+    for el in a["elements"]:
+        if el not in cc.swap:
+            continue
+        offset = _dangling_energy(model, full, el) - edge_a
+        out[f"shift_{el}"] = np.asarray(full[f"shift_{el}"]) + edge_move + offset * (lam - 1.0)
+    return out
 
 
 def _cation_like(first, vacant, source) -> bool:
@@ -121,15 +166,14 @@ def _compiled(fit, case, geometry, swap, host_gap=None):
     key = (case, tuple(sorted((swap or {}).items())), host_gap)
     if host_gap is not None and not swap:
         raise ModelError("host_gap describes the host a swap makes: pass swap={old: new} with it")
+    anchor = None if host_gap is None else edge_anchor(fit, case, host_gap, geometry)
     if swap:
         bad = [el for el in swap if el not in model.species]
         if bad:
             raise ModelError(f"swap names {bad} but the cluster holds {list(model.species)}")
         onsite = dict(model.onsite)
-        move = None if host_gap is None else edge_shift(fit, case, host_gap)
         for old, new in swap.items():
-            if move is not None:       # in-solid route: keep the place relative to the band edge
-                onsite[old] = tuple(float(x) + move for x in model.onsite[old])
+            if anchor is not None:     # in-solid route: placed relative to the band edge in _params
                 continue
             tv = term_values(new, model.term_source)
             onsite[old] = (tv.s, np.nan if tv.p is None else tv.p, np.nan if tv.d is None else tv.d)
@@ -144,11 +188,13 @@ def _compiled(fit, case, geometry, swap, host_gap=None):
         if key not in cache:
             cache[key] = model.compile()
             cache[key].swap = dict(swap or {})
+            cache[key].anchor = anchor
         return cache[key]
     cc = model.compile(geometry)  # locates the vacancy in the geometry first (ModelError when not there)
     if hasattr(geometry, "get_positions"):
         check_elements(fit.problem.models[case], geometry, swap)
     cc.swap = dict(swap or {})
+    cc.anchor = anchor
     return cc
 
 
@@ -159,10 +205,13 @@ def _params(fit, case, cc, X, coupling_scale=1.0, onsite_shift=0.0):
     full = cc.model.defaults()
     full.update(p)
     full["coupling_scale"] = full["coupling_scale"] * np.asarray(coupling_scale)
+    anchor = getattr(cc, "anchor", None)
     # an incoming element whose on-site offset the fit measured (it was in the family) keeps that offset
     for old, new in (getattr(cc, "swap", None) or {}).items():
-        if f"shift_{new}" in p and new not in cc.model.species:
+        if anchor is None and f"shift_{new}" in p and new not in cc.model.species:
             full[f"shift_{old}"] = p[f"shift_{new}"]
+    if anchor is not None:   # in-solid route: relative to the edge, on the fitted case's VBM scale
+        full.update(_anchor_shifts(cc, full, vbm + model_vbm(fit.problem.models[case], full)))
     vbm = vbm + model_vbm(cc.model, full)  # the host's edge moves with swap/strain (edges="model")
     first_species = {cc.model.elements[i] for i in np.flatnonzero(cc.first)}
     for el in first_species:

@@ -54,8 +54,11 @@ BREATHING = ("ZnS", "AlP", "CaO", "NaCl", "CsCl")
 #: Every case the committed family must hold (the test fails when one is missing). One place.
 EXPECTED_CASES = (
     "ZnS/host", "ZnS/V_S", "ZnS/V_S_r0.95", "ZnS/V_S_r1.05", "CdS/host", "CdS/V_S",
+    "AlP/host", "AlP/V_P", "AlP/V_P_r0.95", "AlP/V_P_r1.05", "GaP/host", "GaP/V_P",
+    "CaO/host", "CaO/V_O", "CaO/V_O_r0.95", "CaO/V_O_r1.05", "SrO/host", "SrO/V_O",
     "NaCl/host", "NaCl/V_Cl", "NaCl/V_Cl_r0.95", "NaCl/V_Cl_r1.05", "KCl/host", "KCl/V_Cl",
-    "CsCl/host", "CsCl/V_Cl", "CsCl/V_Cl_r0.95", "CsCl/V_Cl_r1.05", "AlP/host",
+    "CsCl/host", "CsCl/V_Cl", "CsCl/V_Cl_r0.95", "CsCl/V_Cl_r1.05",
+    "ZnS/V_Zn", "NaCl/V_Na", "CsCl/V_Cs",
     "ZnS/bands", "CdS/bands", "AlP/bands", "GaP/bands", "CaO/bands", "SrO/bands", "NaCl/bands", "KCl/bands",
     "CsCl/bands",
 )
@@ -110,8 +113,9 @@ class Observed:
 
 
 def observe(name: str, folder: Path, host_folder: Path, bands: list, *, charge: int = 0, spin: int = 0,
-            engine: dict | None = None) -> Observed:
-    """Load one defect case with orbtool and pick the engine's state (``bands``: projection indices)."""
+            engine: dict | None = None, window: float | None = None) -> Observed:
+    """Load one defect case with orbtool and pick the engine's state (``bands``: projection indices).
+    ``window`` (eV): how far outside the gap the state may lie (default orbtool.story.RESONANT_WINDOW)."""
     import orbtool
     from orbtool.analysis import align, in_gap_states, locate_vacancy
 
@@ -126,7 +130,7 @@ def observe(name: str, folder: Path, host_folder: Path, bands: list, *, charge: 
     missing = [b for b in bands if (spin, b) not in found]
     if missing:   # a level just outside the gap (resonant, e.g. below the VBM after inward breathing)
         from orbtool.story import RESONANT_WINDOW
-        found = by_band(-RESONANT_WINDOW)
+        found = by_band(-(RESONANT_WINDOW if window is None else window))
         missing = [b for b in bands if (spin, b) not in found]
     if missing:
         raise AssertionError(f"{name}: engine state bands {missing} are not among orbtool's in-gap states "
@@ -146,11 +150,39 @@ def observe(name: str, folder: Path, host_folder: Path, bands: list, *, charge: 
                     vbm=float(states[0].edges.vbm), charge=charge, engine=dict(engine or {}))
 
 
-def observe_periodic(case: str, root: Path = DATA) -> Observed:
+def same_kind(rec: dict, size: int) -> list:
+    """Engine bands (1-based) of the multiplet of ``size`` bands (within 1 meV, the engine's own rule) with
+    the largest share of |ψ̃|² within the first-shell distance, among the engine's bands near E_F.
+
+    A swap compares the same state in both hosts: when the second host's engine-chosen state is another
+    kind (e.g. GaP V_P: the a₁ resonant below the VBM has the largest share, where AlP's is the t₂), the
+    second host's state is its multiplet of the first host's size with the largest share."""
+    bands = sorted(rec["bands_near_fermi"], key=lambda b: b["energy"])
+    groups, cur = [], [bands[0]]
+    for b in bands[1:]:
+        if b["energy"] - cur[-1]["energy"] <= 1e-3:
+            cur.append(b)
+        else:
+            groups.append(cur)
+            cur = [b]
+    groups.append(cur)
+    fit = [g for g in groups if len(g) == size]
+    if not fit:
+        raise AssertionError(f"{rec['case']}: no {size}-fold multiplet among the engine's bands near E_F")
+    best = max(fit, key=lambda g: np.mean([b["vacancy_sphere_fraction"] for b in g]))
+    return [b["band"] for b in best]
+
+
+def observe_periodic(case: str, root: Path = DATA, size: int | None = None, window: float | None = None) -> Observed:
+    """One periodic case with the engine's defect state (``size``: the multiplet size a swap partner's
+    state has — the state of that size is taken, see :func:`same_kind`)."""
     rec = record(case, root)
     first = rec["bands_written"][0]            # 1-based engine band of projection band 0
-    bands = [n - first for n in rec["defect_state"]["bands"]]  # defect_state bands are 1-based
-    return observe(case, root / case, root / case.split("/")[0] / "host", bands, engine=rec)
+    engine_bands = rec["defect_state"]["bands"]  # 1-based
+    if size is not None and len(engine_bands) != size:
+        engine_bands = same_kind(rec, size)
+    bands = [n - first for n in engine_bands]
+    return observe(case, root / case, root / case.split("/")[0] / "host", bands, engine=rec, window=window)
 
 
 def observe_pyscf(case: str, root: Path = PYSCF) -> Observed:
@@ -199,6 +231,9 @@ VARIANTS = {
     "identity": Spec("hybrid defect molecule, Harrison couplings, constant VBM, DFT state identity", identity=True),
     "identity+gap": Spec("hybrid, Harrison couplings, constant VBM, DFT state identity, swapped cation anchored to "
                          "the new host's conduction-band edge (host_gap)", identity=True, host_gap=True),
+    "sp+gap": Spec("sp cluster of two shells (dangling and back bonds), Harrison couplings, constant VBM, DFT "
+                   "state identity, in-solid swap route (host_gap)", identity=True, host_gap=True,
+                   around={"orbitals": "sp", "scaling": "harrison"}),
     "identity+edges": Spec("hybrid, Harrison couplings, VBM from the model's host bands, DFT state identity",
                            identity=True, around={"orbitals": "hybrid", "scaling": "harrison", "edges": "model"}),
     "identity+overlap": Spec("hybrid, Wolfsberg–Helmholz ANO-overlap couplings, constant VBM, DFT state identity",
@@ -273,22 +308,24 @@ def periodic_rows(spec: Spec = BASELINE, root: Path = DATA, cache: dict | None =
     def have(case, root):
         return present(case, root) and (everything or case in EXPECTED_CASES)
 
-    def get(case):
-        if case not in cache:
-            cache[case] = observe_periodic(case, root)
-        return cache[case]
+    def get(case, size=None):
+        if (case, size) not in cache:
+            cache[(case, size)] = observe_periodic(case, root, size)
+        return cache[(case, size)]
 
     rows = []
     for a, b in PAIRS:
         need = [f"{a}/host", ideal(a), f"{b}/host", ideal(b)]
         if not all(have(c, root) for c in need):
             continue
-        first = [get(c) for c in breathing_cases(a) if have(c, root)]
-        rows.append(swap_row(first, get(ideal(b)), HOSTS[a][0], HOSTS[b][0], spec, f"{a}→{b} V_{HOSTS[a][1]}"))
+        size = len(record(ideal(a), root)["defect_state"]["bands"])   # the same state in every case of the pair
+        first = [get(c, size) for c in breathing_cases(a) if have(c, root)]
+        rows.append(swap_row(first, get(ideal(b), size), HOSTS[a][0], HOSTS[b][0], spec, f"{a}→{b} V_{HOSTS[a][1]}"))
     for h in BREATHING:
         cs = breathing_cases(h)
         if all(have(c, root) for c in cs) and have(f"{h}/host", root):
-            rows += breathing_rows([get(c) for c in cs], spec, f"{h} V_{HOSTS[h][1]} ")
+            size = len(record(cs[0], root)["defect_state"]["bands"])   # the same state along the series
+            rows += breathing_rows([get(c, size) for c in cs], spec, f"{h} V_{HOSTS[h][1]} ")
     return rows
 
 
