@@ -26,7 +26,7 @@ TOLERANCE = 0.15  # eV, the issue's acceptance
 
 #: rows that fail the acceptance today: row name -> (engine shift, predicted shift) measured, eV
 FAILING_TODAY = {
-    "pyscf Li→Na (Li14F12⁺ cluster)": (-0.428, +0.278),
+    "pyscf Li→Na (Li14F12⁺ cluster)": (-0.428, +0.071),
     "ZnS→CdS V_S": (-0.312, -0.752),
     "AlP V_P r0.95": (-0.132, +0.099),
     "AlP V_P r1.05": (+0.186, -0.071),
