@@ -96,12 +96,37 @@ class _SiteOf:
         self.distortion_modes = lambda: dict(model.modes)
 
 
+def _family_source(model, targets):
+    """The model with one term-value source for every case of a shared fit: when the source was chosen
+    automatically and a later case holds an element the first case's table lacks, the source that holds
+    every element of every case (sources are never mixed inside one fit)."""
+    from dataclasses import replace
+
+    from .elements import common_source
+
+    if model.options.get("term_values", "auto") != "auto":
+        return model, False
+    els = set(model.elements)
+    for t in targets:
+        site = t.site
+        if site is None:
+            continue
+        for shell in ("first_shell", "second_shell"):
+            els |= {str(nb.element) for nb in (getattr(site, shell, ()) or ())}
+    els -= set(model.options.get("onsite") or {})
+    src = common_source(els, "auto")
+    if src == model.term_source:
+        return model, False
+    return replace(model, term_source=src), True
+
+
 def collect_models(model, targets):
     models = {}
+    model, rebuilt = _family_source(model, targets)
     for t in targets:
         if t.case in models:
             continue
-        if t.site is None and t.charge is None:
+        if t.site is None and t.charge is None and not rebuilt:
             m = model
         else:
             site = t.site if t.site is not None else _SiteOf(model)

@@ -20,7 +20,7 @@ hybrids (full clusters); an integer picks a level by rank (0 = lowest).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -214,17 +214,19 @@ class ClusterModel:
                    r_d=dict(r_d or {}), modes=_modes(site, vec[: len(first)]), notes=tuple(notes),
                    host_bands=bands,
                    options={"onsite": dict(onsite or {}), "charge": charge, "electrons": electrons,
-                            "pair_cutoff": pair_cutoff, "shells": shells, "edges": edges})
+                            "pair_cutoff": pair_cutoff, "shells": shells, "edges": edges,
+                            "vacant": getattr(site, "element", None), "term_values": term_values})
 
     def with_site(self, site, charge: int | None = None) -> "ClusterModel":
         """The same settings (distance law with the same d0, term-value source, user on-site energies,
         hybrid s fraction, level rule, shells, cutoff) around another site, e.g. another case of a family."""
         o = self.options
-        return ClusterModel.around(site, self.orbitals, self.law, term_values=self.term_source,
+        m = ClusterModel.around(site, self.orbitals, self.law, term_values=self.term_source,
                                    onsite=o.get("onsite") or None, s_fraction=self.s_fraction, level=self.level,
                                    charge=o.get("charge", 0) if charge is None else charge,
                                    electrons=o.get("electrons"), shells=o.get("shells"),
                                    pair_cutoff=o.get("pair_cutoff"), r_d=self.r_d, edges=o.get("edges", "constant"))
+        return replace(m, options={**m.options, "term_values": o.get("term_values", "auto")})
 
     # ------------------------------------------------------------------ parameters
     @property

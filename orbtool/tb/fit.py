@@ -39,8 +39,14 @@ def knob_validation_lines() -> list:
     except (FileNotFoundError, OSError, ValueError):
         return []
     sw, br = rec["swap"], rec["breathing"]
+    routes = sw.get("routes") or {}
+    how = "; ".join(f"{text} {r['n']}, RMS {r['rms']:.2f} eV, sign right in {r['sign_right']}"
+                    for key, text in (("host_gap", "given the new host's gap (host_gap=):"),
+                                      ("free_atom", "from free-atom term values only:"))
+                    if (r := routes.get(key)) and r["n"])
     return [f"knob validation on real DFT ({rec['date']}, model: {rec['model']}): the cation knob was checked "
-            f"on {sw['n']} real swaps, RMS {sw['rms']:.2f} eV, sign right in {sw['sign_right']} of {sw['n']}; "
+            f"on {sw['n']} real swaps, RMS {sw['rms']:.2f} eV, sign right in {sw['sign_right']} of {sw['n']}"
+            + (f" ({how})" if how else "") + "; "
             f"the breathing knob on {br['series']} series ({br['n']} leave-one-out predictions), RMS "
             f"{br['rms']:.2f} eV. Predictions outside what was checked are extrapolations."]
 

@@ -11,6 +11,7 @@ state) in a small rocksalt cluster.
 * ``vac_out5``  ``vac`` with the six first-shell Li moved radially out by 5 %.
 * ``vac_in5``   ``vac`` with the six first-shell Li moved radially in by 5 %.
 * ``vac_na``    ``vac`` with the six first-shell Li swapped for Na (cation swap).
+* ``host_na``   ``host`` with the same six Li swapped for Na (the pristine cluster of the swap).
 
 The clusters sit in a cubic box (an ``ase.Atoms`` with a cell and
 ``pbc=False``) so that readers see a periodic-looking geometry; the cube
@@ -76,6 +77,8 @@ CASES = {
     "vac_out5": dict(vacancy=True, breathe=+0.05, swap=None, charge=1, spin=1, cubes=()),
     "vac_in5": dict(vacancy=True, breathe=-0.05, swap=None, charge=1, spin=1, cubes=()),
     "vac_na": dict(vacancy=True, breathe=0.0, swap="Na", charge=1, spin=1, cubes=()),
+    # the pristine cluster the swap makes (its gap is what a swap prediction is given: host_gap)
+    "host_na": dict(vacancy=False, breathe=0.0, swap="Na", charge=1, spin=0, cubes=()),
     # a covalent, tetrahedral site: Si(SiH3)4 and the Si vacancy left in it (four SiH3 groups
     # whose dangling hybrids point at the empty site, the defect molecule of Coulson & Kearsley);
     # charge +2 leaves the a1 combination doubly occupied and the t2 set empty (closed shell)

@@ -26,12 +26,19 @@ TOLERANCE = 0.15  # eV, the issue's acceptance
 
 #: rows that fail the acceptance today: row name -> (engine shift, predicted shift) measured, eV
 FAILING_TODAY = {
-    "pyscf Li→Na (Li14F12⁺ cluster)": (-0.428, +0.278),
-    "ZnS→CdS V_S": (-0.312, +0.860),
-    "NaCl→KCl V_Cl": (+0.242, +0.833),
+    "pyscf Li→Na (Li14F12⁺ cluster)": (-0.428, +0.071),
+    "ZnS→CdS V_S": (-0.312, -0.752),
+    "AlP V_P r0.95": (-0.132, +0.099),
+    "AlP V_P r1.05": (+0.186, -0.071),
 }
 
 DEFECTS = [c for c in harness.EXPECTED_CASES if "/V_" in c]
+#: cases whose engine-chosen state (largest share of |ψ̃|² near the vacant site among the bands within
+#: E_F ± 3 eV) lies well outside the gap — a resonance orbtool must not call an in-gap level. Measured
+#: here: GaP V_P a₁ 1.5 eV below the VBM; AlP V_P at 1.05 d: a₁ in the valence band (its ideal and
+#: 0.95 d cases pick the t₂ at the conduction-band edge); the cation vacancies ZnS V_Zn and NaCl V_Na:
+#: an anion-p resonance 1–2 eV inside the valence band (CsCl V_Cs: its hole state at the VBM, in the window).
+RESONANT_CASES = ("GaP/V_P", "AlP/V_P_r1.05", "NaCl/V_Na", "ZnS/V_Zn")
 NEIGHBOURS = {"zincblende": 4, "rocksalt": 6, "cesiumchloride": 8}
 
 
@@ -50,7 +57,7 @@ def _obs(observed, case):
     if not harness.present(case):
         pytest.skip(f"{case} not committed")
     if case not in observed:
-        observed[case] = harness.observe_periodic(case)
+        observed[case] = harness.observe_periodic(case, window=6.0 if case in RESONANT_CASES else None)
     return observed[case]
 
 
@@ -72,16 +79,27 @@ def test_vacancy_found_where_the_engine_made_it(observed, case):
 @pytest.mark.parametrize("case", DEFECTS)
 def test_engine_defect_state_reproduced(observed, case):
     """orbtool's in_gap_states holds the engine's defect multiplet: energy on the defect cell's scale
-    within 1e-4 eV (the text files round to 1 µeV) and the same occupation within 0.01 e."""
-    o = _obs(observed, case)
+    within 1e-4 eV (the text files round to 1 µeV) and the same occupation within 0.01 e — or, for a
+    state the engine finds outside the gap, orbtool declines it as an in-gap level and still finds it
+    (energy and occupation) with a wide window, outside the gap."""
+    from orbtool.story import RESONANT_WINDOW
+
+    if not harness.present(case):
+        pytest.skip(f"{case} not committed")
+    if case in RESONANT_CASES:
+        with pytest.raises(AssertionError, match="not among orbtool's in-gap states"):
+            harness.observe_periodic(case)
+        o = harness.observe_periodic(case, window=6.0)
+    else:
+        o = _obs(observed, case)
     st = o.engine["defect_state"]
     assert o.degeneracy == len(st["bands"])
     assert o.energy == pytest.approx(st["energy"], abs=1e-4)
     assert o.occupation == pytest.approx(st["occupation"], abs=0.01)
+    inside = -RESONANT_WINDOW < o.above_vbm < o.states[0].edges.gap + RESONANT_WINDOW
     # in the gap, or resonant just outside it (ZnS at 0.95 d: the a1 level falls 0.09 eV below the VBM), within
     # the window orbtool.story allows for a level chosen by character
-    from orbtool.story import RESONANT_WINDOW
-    assert -RESONANT_WINDOW < o.above_vbm < o.states[0].edges.gap + RESONANT_WINDOW
+    assert inside == (case not in RESONANT_CASES), (case, o.above_vbm, o.states[0].edges.gap)
 
 
 def test_cd_caution_for_the_zns_cds_pair():

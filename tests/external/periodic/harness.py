@@ -14,12 +14,19 @@ What is measured
 ----------------
 * **Chemistry knob** (cation swap A → B): the model is fitted on host A's cases only (the ideal anion
   vacancy, plus its breathing series when present); the level of B's anion vacancy is predicted with
-  ``fit.predict(geometry=<B's defect cell>, swap={cation_A: cation_B})`` — B's bond lengths, B's
-  cation, nothing fitted to B. Each level is referred to its own host's VBM. Engine shift =
-  level(B) − level(A); predicted shift = prediction(B) − model level(A).
+  ``fit.predict(geometry=<B's defect cell>, swap={cation_A: cation_B}, host_gap=<B's gap>)`` — B's bond
+  lengths, B's cation and the band gap of B's *pristine* host (the in-solid route of
+  :mod:`orbtool.tb.whatif`; the gap is the pristine 54-site supercell's Γ gap, on the same footing as
+  A's target gap), nothing of B's defect cell. Variants without ``host_gap`` take free-atom term values.
+  Each level is referred to its own host's VBM. Engine shift = level(B) − level(A); predicted shift =
+  prediction(B) − model level(A). Both hosts' states are the same kind: A's engine-chosen multiplet
+  sets the size, and B's state is its multiplet of that size with the largest share of |ψ̃|² near the
+  vacant site (:func:`same_kind`; GaP's engine-chosen state is the a₁ resonance in the valence band,
+  AlP's the t₂).
 * **Structure knob** (breathing, first shell at 0.95 d and 1.05 d): leave-one-out — fit on two of the
   three cases, predict the third (``FitResult.cross_validate``). Engine shift = level(case) −
-  level(ideal); predicted shift = engine shift + leave-one-out error.
+  level(ideal); predicted shift = engine shift + leave-one-out error. The same state along the series
+  (the ideal case's multiplet size, as for swaps).
 
 Energies: the defect state is the multiplet the engine's own analysis names (``engine.json``
 ``defect_state`` bands; pyscf: ``state_index``); its level is the multiplet mean on the host scale
@@ -54,8 +61,11 @@ BREATHING = ("ZnS", "AlP", "CaO", "NaCl", "CsCl")
 #: Every case the committed family must hold (the test fails when one is missing). One place.
 EXPECTED_CASES = (
     "ZnS/host", "ZnS/V_S", "ZnS/V_S_r0.95", "ZnS/V_S_r1.05", "CdS/host", "CdS/V_S",
+    "AlP/host", "AlP/V_P", "AlP/V_P_r0.95", "AlP/V_P_r1.05", "GaP/host", "GaP/V_P",
+    "CaO/host", "CaO/V_O", "CaO/V_O_r0.95", "CaO/V_O_r1.05", "SrO/host", "SrO/V_O",
     "NaCl/host", "NaCl/V_Cl", "NaCl/V_Cl_r0.95", "NaCl/V_Cl_r1.05", "KCl/host", "KCl/V_Cl",
-    "CsCl/host", "CsCl/V_Cl", "CsCl/V_Cl_r0.95", "CsCl/V_Cl_r1.05", "AlP/host",
+    "CsCl/host", "CsCl/V_Cl", "CsCl/V_Cl_r0.95", "CsCl/V_Cl_r1.05",
+    "ZnS/V_Zn", "NaCl/V_Na", "CsCl/V_Cs",
     "ZnS/bands", "CdS/bands", "AlP/bands", "GaP/bands", "CaO/bands", "SrO/bands", "NaCl/bands", "KCl/bands",
     "CsCl/bands",
 )
@@ -110,8 +120,9 @@ class Observed:
 
 
 def observe(name: str, folder: Path, host_folder: Path, bands: list, *, charge: int = 0, spin: int = 0,
-            engine: dict | None = None) -> Observed:
-    """Load one defect case with orbtool and pick the engine's state (``bands``: projection indices)."""
+            engine: dict | None = None, window: float | None = None) -> Observed:
+    """Load one defect case with orbtool and pick the engine's state (``bands``: projection indices).
+    ``window`` (eV): how far outside the gap the state may lie (default orbtool.story.RESONANT_WINDOW)."""
     import orbtool
     from orbtool.analysis import align, in_gap_states, locate_vacancy
 
@@ -126,7 +137,7 @@ def observe(name: str, folder: Path, host_folder: Path, bands: list, *, charge: 
     missing = [b for b in bands if (spin, b) not in found]
     if missing:   # a level just outside the gap (resonant, e.g. below the VBM after inward breathing)
         from orbtool.story import RESONANT_WINDOW
-        found = by_band(-RESONANT_WINDOW)
+        found = by_band(-(RESONANT_WINDOW if window is None else window))
         missing = [b for b in bands if (spin, b) not in found]
     if missing:
         raise AssertionError(f"{name}: engine state bands {missing} are not among orbtool's in-gap states "
@@ -146,11 +157,39 @@ def observe(name: str, folder: Path, host_folder: Path, bands: list, *, charge: 
                     vbm=float(states[0].edges.vbm), charge=charge, engine=dict(engine or {}))
 
 
-def observe_periodic(case: str, root: Path = DATA) -> Observed:
+def same_kind(rec: dict, size: int) -> list:
+    """Engine bands (1-based) of the multiplet of ``size`` bands (within 1 meV, the engine's own rule) with
+    the largest share of |ψ̃|² within the first-shell distance, among the engine's bands near E_F.
+
+    A swap compares the same state in both hosts: when the second host's engine-chosen state is another
+    kind (e.g. GaP V_P: the a₁ resonant below the VBM has the largest share, where AlP's is the t₂), the
+    second host's state is its multiplet of the first host's size with the largest share."""
+    bands = sorted(rec["bands_near_fermi"], key=lambda b: b["energy"])
+    groups, cur = [], [bands[0]]
+    for b in bands[1:]:
+        if b["energy"] - cur[-1]["energy"] <= 1e-3:
+            cur.append(b)
+        else:
+            groups.append(cur)
+            cur = [b]
+    groups.append(cur)
+    fit = [g for g in groups if len(g) == size]
+    if not fit:
+        raise AssertionError(f"{rec['case']}: no {size}-fold multiplet among the engine's bands near E_F")
+    best = max(fit, key=lambda g: np.mean([b["vacancy_sphere_fraction"] for b in g]))
+    return [b["band"] for b in best]
+
+
+def observe_periodic(case: str, root: Path = DATA, size: int | None = None, window: float | None = None) -> Observed:
+    """One periodic case with the engine's defect state (``size``: the multiplet size a swap partner's
+    state has — the state of that size is taken, see :func:`same_kind`)."""
     rec = record(case, root)
     first = rec["bands_written"][0]            # 1-based engine band of projection band 0
-    bands = [n - first for n in rec["defect_state"]["bands"]]  # defect_state bands are 1-based
-    return observe(case, root / case, root / case.split("/")[0] / "host", bands, engine=rec)
+    engine_bands = rec["defect_state"]["bands"]  # 1-based
+    if size is not None and len(engine_bands) != size:
+        engine_bands = same_kind(rec, size)
+    bands = [n - first for n in engine_bands]
+    return observe(case, root / case, root / case.split("/")[0] / "host", bands, engine=rec, window=window)
 
 
 def observe_pyscf(case: str, root: Path = PYSCF) -> Observed:
@@ -169,6 +208,7 @@ class Spec:
     around: dict = field(default_factory=lambda: {"orbitals": "hybrid", "scaling": "harrison"})
     use: tuple = ("level", "character")
     identity: bool = False    # tell the model the DFT multiplet's size and occupation
+    host_gap: bool = False    # swaps by the in-solid route: the new host's (supercell Γ) gap is given
 
     def targets(self, obs: list):
         from orbtool.tb import Target
@@ -188,13 +228,21 @@ class Spec:
         """The same model for the pyscf clusters: level targets only (as their own tests fit), and the
         constant VBM (a cluster host has no bulk band edges; it does not change in those variants)."""
         around = {k: v for k, v in self.around.items() if k != "edges"}
-        return Spec(self.name, around, ("level",), self.identity)
+        return Spec(self.name, around, ("level",), self.identity, host_gap=self.host_gap)
 
 
 #: the variants compared on the harness (step by step, each kept only if the harness improves)
 VARIANTS = {
     "baseline": Spec("hybrid defect molecule, Harrison couplings, constant VBM, valence counting"),
     "identity": Spec("hybrid defect molecule, Harrison couplings, constant VBM, DFT state identity", identity=True),
+    "identity+gap": Spec("hybrid, Harrison couplings, constant VBM, DFT state identity, swapped cation anchored to "
+                         "the new host's conduction-band edge (host_gap)", identity=True, host_gap=True),
+    "identity+overlap+gap": Spec("hybrid, Wolfsberg–Helmholz ANO-overlap couplings, constant VBM, DFT state "
+                                 "identity, in-solid swap route (host_gap)", identity=True, host_gap=True,
+                                 around={"orbitals": "hybrid", "scaling": "overlap"}),
+    "sp+gap": Spec("sp cluster of two shells (dangling and back bonds), Harrison couplings, constant VBM, DFT "
+                   "state identity, in-solid swap route (host_gap)", identity=True, host_gap=True,
+                   around={"orbitals": "sp", "scaling": "harrison"}),
     "identity+edges": Spec("hybrid, Harrison couplings, VBM from the model's host bands, DFT state identity",
                            identity=True, around={"orbitals": "hybrid", "scaling": "harrison", "edges": "model"}),
     "identity+overlap": Spec("hybrid, Wolfsberg–Helmholz ANO-overlap couplings, constant VBM, DFT state identity",
@@ -203,8 +251,9 @@ VARIANTS = {
                                    "state identity", identity=True,
                                    around={"orbitals": "hybrid", "scaling": "overlap", "edges": "model"}),
 }
-#: orbtool's defaults at this commit (targets_from_case passes the multiplet size; edges="constant")
-DEFAULT = "identity"
+#: orbtool's defaults at this commit (targets_from_case passes the multiplet size; edges="constant"; a swap
+#: given the new host's gap takes the in-solid route)
+DEFAULT = "identity+gap"
 BASELINE = VARIANTS[DEFAULT]
 
 
@@ -230,14 +279,23 @@ class Row:
         return bool(np.sign(self.predicted) == np.sign(self.engine))
 
 
-def swap_row(first: list, second: Observed, cation_a: str, cation_b: str, spec: Spec, label: str) -> Row:
-    """Fit on ``first`` (host A's cases, ideal first), predict B's level by the chemistry knob alone."""
+def swap_row(first: list, second: Observed, cation_a: str, cation_b: str, spec: Spec, label: str,
+             gap: float | None = None) -> Row:
+    """Fit on ``first`` (host A's cases, ideal first), predict B's level by the chemistry knob alone
+    (``gap``: B's pristine-host gap for the in-solid route; default B's supercell Γ gap)."""
     result = spec.fit(first)
     a = first[0]
     base = result.predict(case=a.name, labels=False).level
-    pred = result.predict(geometry=second.case.defect, swap={cation_a: cation_b}, case=a.name, labels=False).level
+    # the in-solid route is given B's gap on the same footing as A's target gap (supercell Γ edges)
+    if spec.host_gap and gap is None and second.states[0].edges is not None:
+        gap = float(second.states[0].edges.gap)
+    gap = gap if spec.host_gap else None
+    pred = result.predict(geometry=second.case.defect, swap={cation_a: cation_b}, case=a.name, labels=False,
+                          host_gap=gap).level
     return Row("swap", label, second.above_vbm - a.above_vbm, pred - base,
-               note=f"fit on {', '.join(o.name for o in first)}", aic=result.aic, bic=result.bic)
+               note=f"fit on {', '.join(o.name for o in first)}" + (f"; {second.name} host gap {gap:.3f} eV"
+                                                                    if gap is not None else ""),
+               aic=result.aic, bic=result.bic)
 
 
 def breathing_rows(series: list, spec: Spec, label: str) -> list:
@@ -263,23 +321,37 @@ def periodic_rows(spec: Spec = BASELINE, root: Path = DATA, cache: dict | None =
     def have(case, root):
         return present(case, root) and (everything or case in EXPECTED_CASES)
 
-    def get(case):
-        if case not in cache:
-            cache[case] = observe_periodic(case, root)
-        return cache[case]
+    def get(case, size=None):
+        if (case, size) not in cache:
+            cache[(case, size)] = observe_periodic(case, root, size)
+        return cache[(case, size)]
 
     rows = []
     for a, b in PAIRS:
         need = [f"{a}/host", ideal(a), f"{b}/host", ideal(b)]
         if not all(have(c, root) for c in need):
             continue
-        first = [get(c) for c in breathing_cases(a) if have(c, root)]
-        rows.append(swap_row(first, get(ideal(b)), HOSTS[a][0], HOSTS[b][0], spec, f"{a}→{b} V_{HOSTS[a][1]}"))
+        size = len(record(ideal(a), root)["defect_state"]["bands"])   # the same state in every case of the pair
+        first = [get(c, size) for c in breathing_cases(a) if have(c, root)]
+        rows.append(swap_row(first, get(ideal(b), size), HOSTS[a][0], HOSTS[b][0], spec, f"{a}→{b} V_{HOSTS[a][1]}"))
     for h in BREATHING:
         cs = breathing_cases(h)
         if all(have(c, root) for c in cs) and have(f"{h}/host", root):
-            rows += breathing_rows([get(c) for c in cs], spec, f"{h} V_{HOSTS[h][1]} ")
+            size = len(record(cs[0], root)["defect_state"]["bands"])   # the same state along the series
+            rows += breathing_rows([get(c, size) for c in cs], spec, f"{h} V_{HOSTS[h][1]} ")
     return rows
+
+
+def cluster_gap(case: str, root: Path = PYSCF) -> float | None:
+    """HOMO–LUMO gap (eV) of a pristine pyscf cluster as orbtool measures edges (``band_edges`` of its
+    projections, the same route as the defect cases' target gaps); None when not committed."""
+    if not (root / case / "engine.json").exists():
+        return None
+    import orbtool
+    from orbtool.analysis import band_edges
+
+    host = orbtool.load_case(root / case, host=root / case, grids=False)
+    return float(band_edges(host.host_projections).gap)
 
 
 def pyscf_rows(spec: Spec = BASELINE, root: Path = PYSCF, cache: dict | None = None) -> list:
@@ -292,7 +364,10 @@ def pyscf_rows(spec: Spec = BASELINE, root: Path = PYSCF, cache: dict | None = N
         return cache[case]
 
     series = [get(c) for c in ("vac", "vac_in5", "vac_out5")]
-    rows = [swap_row(series, get("vac_na"), "Li", "Na", spec, "pyscf Li→Na (Li14F12⁺ cluster)")]
+    gap = cluster_gap("host_na", root) if spec.host_gap else None
+    if gap is None:   # without the pristine Na cluster there is no new host's gap: free-atom route
+        spec = Spec(spec.name, spec.around, spec.use, spec.identity, host_gap=False)
+    rows = [swap_row(series, get("vac_na"), "Li", "Na", spec, "pyscf Li→Na (Li14F12⁺ cluster)", gap=gap)]
     rows += breathing_rows(series, spec, "pyscf F-centre ")
     return rows
 
@@ -366,8 +441,14 @@ def knob_record(rows: list, spec: Spec) -> dict:
     n_s, r_s = rms(rows, "swap")
     n_b, r_b = rms(rows, "breathing")
     series = len({r.case.rsplit(" ", 1)[0] for r in rows if r.kind == "breathing"})
+    gap_rows = [r for r in rows if r.kind == "swap" and "host gap" in r.note]
+    free_rows = [r for r in rows if r.kind == "swap" and "host gap" not in r.note]
+    routes = {name: {"n": rms(rs, "swap")[0], "rms": rms(rs, "swap")[1],
+                     "sign_right": sum(1 for r in rs if r.sign_right)}
+              for name, rs in (("host_gap", gap_rows), ("free_atom", free_rows))}
     return {"date": time.strftime("%Y-%m-%d"), "model": spec.name,
-            "swap": {"n": n_s, "rms": r_s, "sign_right": sum(1 for r in rows if r.kind == "swap" and r.sign_right)},
+            "swap": {"n": n_s, "rms": r_s, "sign_right": sum(1 for r in rows if r.kind == "swap" and r.sign_right),
+                     "routes": routes},
             "breathing": {"n": n_b, "rms": r_b, "series": series},
             "source": "tests/external/periodic/harness.py (GPAW periodic family + pyscf clusters)"}
 
