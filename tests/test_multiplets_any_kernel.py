@@ -175,3 +175,17 @@ def test_distortion_patterns_do_not_depend_on_the_basis(key, monkeypatch):
         assert [lab for lab, _ in blocks] == [lab for lab, _ in ref]
         for (lab, b), (_, r) in zip(blocks, ref):
             np.testing.assert_allclose(b, r, atol=1e-7, err_msg=lab)
+
+
+def test_one_degeneracy_rule_anchored_at_the_first_member():
+    """DEGENERATE (0.1 meV) groups levels the way the symmetry labels group them (each multiplet anchored at its
+    first member, tb.symmetry.label_levels): a chain of close levels spanning more than the tolerance splits."""
+    t = _evaluate.DEGENERATE
+    E = np.array([[0.0, 0.5 * t, 0.9 * t, 1.3 * t, 1.0, 1.0 + 0.2 * t],
+                  [0.0, 2.0 * t, 4.0 * t, 6.0 * t, 8.0 * t, 10.0 * t]])
+    first, last = _evaluate.multiplet_bounds(E)
+    assert first.tolist() == [[0, 0, 0, 3, 4, 4], [0, 1, 2, 3, 4, 5]]
+    assert last.tolist() == [[2, 2, 2, 3, 5, 5], [0, 1, 2, 3, 4, 5]]
+    mean = _evaluate.multiplet_mean(E, first, last)
+    assert mean[0, 1] == mean[0, 0] == pytest.approx((0.5 + 0.9) * t / 3)
+    assert _evaluate.multiplet_members(E[0], 5).tolist() == [4, 5]

@@ -59,7 +59,10 @@ def test_mechanism_figure_shows_the_story(story_and_mechanism, tmp_path):
     # the numbers the figure draws are the story's
     assert mech.level == pytest.approx(m.level, abs=1e-12) and mech.sigma == pytest.approx(m.sigma, abs=1e-12)
     assert mech.labels[mech.defect_index] == m.label
-    assert mech.orbital_groups() == pytest.approx(m.dangling)
+    groups = mech.orbital_groups()
+    assert list(groups) == list(m.dangling)
+    for k, (e, n) in groups.items():
+        assert n == m.dangling[k][1] and e == pytest.approx(m.dangling[k][0], abs=1e-12)
     # and the figure prints them
     fig = mechanism_figure(mech)
     texts = _svg_texts(fig, tmp_path / "mechanism.svg")
