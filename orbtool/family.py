@@ -99,33 +99,26 @@ def analyze_case(case) -> CaseAnalysis:
     t0 = time.perf_counter()
     out = CaseAnalysis(case.name, dict(case.labels), case.charge)
     try:
-        from .analysis import in_gap_states, locate_vacancy
-        from .story import RESONANT_MIN_SHELL, RESONANT_WINDOW, choose_defect_state
+        from .analysis import defect_state, locate_vacancy
         if case.host is None:
             raise OrbtoolError("no host structure: the vacancy cannot be located")
         out.site = locate_vacancy(case.host, case.defect)
         out.descriptors = dict(out.site.descriptors())
-        out.states = list(in_gap_states(case, site=out.site))
-        out.state = choose_defect_state(out.states)
-        if out.state is not None and len(out.states) > 1:  # a choice: say which state and why
-            st = out.state
+        out.state, out.resonant, states = defect_state(case, out.site)
+        out.states = list(states)
+        st = out.state
+        if st is not None and not out.resonant and len(out.states) > 1:  # a choice: say which state and why
             which = (f"band {st.band}" if len(st.bands) == 1 else
                      f"the {len(st.bands)}-fold multiplet of bands {', '.join(str(b) for b in st.bands)}")
             out.notes.append(f"{len(out.states)} in-gap levels; the defect state is taken to be {which} spin {st.spin} "
                              f"at VBM + {st.above_vbm:.3f} eV, the one with the largest first-shell weight "
                              f"({st.shell_fractions.get(1, 0.0):.2f})")
-        if out.state is None:
-            near = [s for s in in_gap_states(case, site=out.site, tol=-RESONANT_WINDOW)
-                    if s.shell_fractions.get(1, 0.0) >= RESONANT_MIN_SHELL]
-            out.state = choose_defect_state(near)
-            if out.state is not None:
-                st = out.state
-                out.resonant = True
-                side, by = (("below the VBM", -st.above_vbm) if st.above_vbm < 0 else ("above the CBM", -st.below_cbm))
-                out.notes.append(f"no level in the gap; the defect state is the resonant level {by:.3f} eV {side} "
-                                 f"(first shell {st.shell_fractions.get(1, 0.0):.2f}), chosen by character")
-            else:
-                out.notes.append("no state in the gap: the vacancy leaves no deep Kohn–Sham level")
+        elif st is not None and out.resonant:
+            side, by = (("below the VBM", -st.above_vbm) if st.above_vbm < 0 else ("above the CBM", -st.below_cbm))
+            out.notes.append(f"no level in the gap; the defect state is the resonant level {by:.3f} eV {side} "
+                             f"(first shell {st.shell_fractions.get(1, 0.0):.2f}), chosen by character")
+        elif st is None:
+            out.notes.append("no state in the gap: the vacancy leaves no deep Kohn–Sham level")
         try:
             out.moments = _first_shell_moments(case, out.site)
         except OrbtoolError as exc:

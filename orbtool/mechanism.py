@@ -29,7 +29,7 @@ class Mechanism:
     onsite : ndarray (nbasis,) — diagonal of H: the dangling-orbital (or atomic) energies
     couplings : list of (i, j, value) — off-diagonal elements |H_ij| > 1 meV, strongest first
     levels : ndarray — all cluster levels; ``labels`` their irreducible representations
-    defect_index : int — which level is the defect level
+    defect_index : int — the first (lowest) member of the defect level's multiplet
     level, sigma : float — the defect level and its 1σ
     cbm : float — conduction-band minimum (gap), nan if unknown
     verdict : str
@@ -59,6 +59,21 @@ class Mechanism:
             tot, n = out.get(kind, (0.0, 0))
             out[kind] = (tot + float(e), n + 1)
         return {k: (tot / n, n) for k, (tot, n) in out.items()}
+
+    def multiplets(self) -> list:
+        """The levels as multiplets by the model's one degeneracy rule
+        (:data:`orbtool.tb._evaluate.DEGENERATE`): list of (mean energy eV, size, indices, label), ascending."""
+        from .tb._evaluate import multiplet_bounds
+
+        E = np.asarray(self.levels, dtype=float)
+        if not len(E):
+            return []
+        first, last = multiplet_bounds(E[None])
+        out = []
+        for a in sorted(set(first[0].tolist())):
+            idx = list(range(a, int(last[0, a]) + 1))
+            out.append((float(E[idx].mean()), len(idx), idx, self.labels[a] if self.labels else "?"))
+        return out
 
     def summary(self) -> str:
         lines = [f"Mechanism of the defect level in {self.case} ({self.orbitals} model)",
@@ -102,7 +117,7 @@ def mechanism(fit, case=None, knobs: dict | None = None) -> Mechanism:
     order = np.argsort(-np.abs(vals))
     couplings = [(int(iu[0][k]), int(iu[1][k]), float(vals[k])) for k in order if abs(vals[k]) > 1e-3]
     pred = fit.predict(case=name)
-    idx = int(np.argmin(np.abs(pred.levels - pred.level)))
+    idx = _defect_multiplet(np.asarray(pred.levels, dtype=float), pred.level)
     kn = dict(knobs or {})
     if not kn:
         # structure knob: the first shell 5 % closer to the site (cluster vectors scaled)
@@ -112,3 +127,14 @@ def mechanism(fit, case=None, knobs: dict | None = None) -> Mechanism:
                      couplings=couplings, levels=np.asarray(pred.levels), labels=list(pred.labels),
                      defect_index=idx, level=pred.level, sigma=pred.sigma, cbm=pred.cbm, verdict=pred.verdict,
                      knobs=kn)
+
+
+def _defect_multiplet(levels, level) -> int:
+    """First member of the multiplet whose mean energy is ``level`` (the prediction's level is a multiplet
+    mean; taking the nearest single level instead would pick a member by rounding noise)."""
+    from .tb._evaluate import multiplet_bounds, multiplet_mean
+
+    first, last = multiplet_bounds(levels[None])
+    means = multiplet_mean(levels[None], first, last)[0]
+    d = np.abs(means - level)
+    return int(first[0, int(np.argmax(d <= d.min() + 1e-9))])

@@ -6,7 +6,8 @@ figures all format a :class:`CaseStory`; none of them refits or reselects. When 
 and a per-case fit exist, the story carries both, each named (``"family fit"``, ``"per-case fit"``).
 
 The rule for *the defect state* is :data:`STATE_RULE` (one rule, applied by
-:func:`choose_defect_state` everywhere). Stories are built by
+:func:`choose_defect_state` everywhere; defined in :mod:`orbtool.analysis.character`, below the fit and
+every surface, and re-exported here). Stories are built by
 :meth:`orbtool.family.FamilyAnalysis.story` (a family) and
 :func:`orbtool.family.case_story` (one case on its own); this module sits below
 :mod:`orbtool.family` and imports nothing above it.
@@ -19,21 +20,17 @@ from typing import Any
 
 import numpy as np
 
+from .analysis.character import (  # noqa: F401  (the rule, re-exported)
+    RESONANT_MIN_SHELL,
+    RESONANT_WINDOW,
+    STATE_RULE,
+    choose_defect_state,
+)
 from .errors import OrbtoolError
 
 __all__ = ["STATE_RULE", "RESONANT_WINDOW", "RESONANT_MIN_SHELL", "MODEL_CAUTION", "toxic_caution",
-           "choose_defect_state", "ModelAccount", "CaseStory", "build_story", "representative"]
-
-#: how far outside the gap (eV) a level may lie and still be the defect state (resonant level)
-RESONANT_WINDOW = 0.3
-#: first-shell weight a resonant level needs to count as the vacancy's level: most of it on the vacancy's
-#: neighbours (common practice for "localised"; the demo-data tests use the same 50 %)
-RESONANT_MIN_SHELL = 0.5
-
-STATE_RULE = ("the defect state is the level — a whole degenerate multiplet — with the largest weight on the "
-              "vacancy's first neighbour shell, among the levels in the gap; when the gap holds none, a level "
-              f"up to {RESONANT_WINDOW} eV outside it (resonant) with at least {RESONANT_MIN_SHELL:.0%} on the "
-              "first shell, its energy used as it is")
+           "choose_defect_state", "ModelAccount", "CaseStory", "build_story", "representative", "DataCoverage",
+           "validated_ranges"]
 
 MODEL_CAUTION = ("Model predictions are not measurements: the fitted tight-binding model interpolates the DFT data "
                  "it was given and inherits its approximations (band gaps, self-interaction). Confirm candidates "
@@ -47,19 +44,6 @@ def toxic_caution(elements) -> str:
     return (f"This family contains {', '.join(elements)}: toxic elements whose synthesis, handling and disposal "
             "are governed by local regulations and licensed laboratory practice. orbtool gives no advice on "
             "handling; follow your institution's safety office.")
-
-
-def choose_defect_state(states):
-    """The defect state among ``states`` by :data:`STATE_RULE` (None if empty).
-
-    Ties on the first-shell weight go to spin up, then to the deeper level (lower energy), so the
-    choice is a total order and does not depend on the order of ``states``.
-    """
-    states = list(states)
-    if not states:
-        return None
-    return max(states, key=lambda s: (round(float(s.shell_fractions.get(1, 0.0)), 9), -int(s.spin),
-                                      -float(s.above_vbm)))
 
 
 @dataclass(frozen=True, eq=False)
@@ -291,3 +275,123 @@ def representative(res, fit=None):
         plain = str(r.labels.get("variant", "relaxed")) in ("relaxed", "", "None")
         return (plain, r.charge == 0, min(r.state.above_vbm, r.state.below_cbm), r.name)
     return max(cands, key=key)
+
+
+# ------------------------------------------------------------------ what the data behind a fit cover
+@dataclass(frozen=True)
+class DataCoverage:
+    """What the fitted cases of a model cover, knob by knob, and what the DFT harness measured.
+
+    Attributes
+    ----------
+    cases : tuple of str — the fitted cases.
+    distance : (float, float) or None — range of the first-shell mean distance to the site over the cases, Å.
+    breathing : (float, float) or None — range of the first shell's mean radial displacement over the host
+        distance (fraction, negative inward) over the cases that know their host.
+    distortion : float or None — largest non-breathing first-shell displacement (norm, Å) among the cases.
+    cations : dict — first-shell element → number of fitted cases it occurs in.
+    charges : tuple of int — charge states fitted (as the targets record them; empty when they do not).
+    motifs : dict — "point group, n-fold" → number of fitted cases.
+    harness : tuple of str — what the leave-one-host-out harness measured on real DFT
+        (``orbtool/data/knob_validation.json``, through :func:`orbtool.tb.fit.knob_validation_lines`).
+    """
+
+    cases: tuple = ()
+    distance: tuple | None = None
+    breathing: tuple | None = None
+    distortion: float | None = None
+    cations: dict = field(default_factory=dict)
+    charges: tuple = ()
+    motifs: dict = field(default_factory=dict)
+    harness: tuple = ()
+
+    def lines(self) -> list[tuple[str, str]]:
+        """(knob, what backs it) for every knob of the level explorer, in plain text."""
+        n = len(self.cases)
+        if not n:
+            return [("data", "the fit does not say which cases it rests on: every knob is the model's extrapolation")]
+        out = []
+        if self.distance is None:
+            out.append(("breathing", "first-shell distances of the fitted cases unknown"))
+        else:
+            lo, hi = self.distance
+            txt = f"fitted cases span first-shell distances {lo:.3f}–{hi:.3f} Å"
+            if self.breathing is not None:
+                txt += f", breathing {self.breathing[0]:+.1%} … {self.breathing[1]:+.1%} of the host distance"
+            if hi - lo <= 1e-4:
+                txt += ": one distance only, so the breathing response is the model's distance law (extrapolation)"
+            out.append(("breathing", txt + f" ({n} case{'s' if n > 1 else ''})"))
+        if self.distortion is not None:
+            out.append(("distortion mode", f"the fitted cases are distorted by at most {self.distortion:.3f} Å "
+                        "(norm of the non-breathing first-shell displacement); larger amplitudes are extrapolation"))
+        out.append(("coupling scale", "not varied in the data (the fitted couplings are one value per parameter): "
+                    "the slider explores the model only"))
+        out.append(("on-site offset", "not varied in the data: the slider explores the model only"))
+        out.append(("swap cation", "first-shell elements fitted: " + ", ".join(
+            f"{el} ({k} case{'s' if k > 1 else ''})" for el, k in self.cations.items())
+            + "; any other element is a term-value extrapolation"))
+        out.append(("charge", "charge states fitted: " + (", ".join(f"{q:+d}" for q in self.charges) if self.charges
+                                                            else "not recorded in the targets")))
+        out.append(("site motif", "; ".join(f"{m} ({k})" for m, k in self.motifs.items())))
+        out.append(("harness", " ".join(self.harness) if self.harness else
+                    "no measurement of the knobs on real DFT is bundled (orbtool/data/knob_validation.json)"))
+        return out
+
+
+def validated_ranges(fit) -> DataCoverage:
+    """What the data behind ``fit`` cover: the range of each knob across the fitted cases (first-shell distance
+    and breathing, distortion, cations, charges, site motifs) and what the DFT harness measured.
+
+    Not the optimiser's parameter bounds: those say where the fit may search, not where it was checked.
+
+    Parameters
+    ----------
+    fit : FitResult — its ``problem`` names the fitted cases (``by_case``: targets with site and charge;
+        ``models``: the case's cluster).
+
+    Returns
+    -------
+    DataCoverage
+    """
+    prob = getattr(fit, "problem", None)
+    by_case = dict(getattr(prob, "by_case", None) or {})
+    models = dict(getattr(prob, "models", None) or {})
+    try:
+        from .tb.fit import knob_validation_lines
+
+        harness = tuple(knob_validation_lines())
+    except (ImportError, KeyError, TypeError):
+        harness = ()
+    cases = tuple(c for c in by_case if c in models)
+    if not cases:
+        return DataCoverage(harness=harness)
+    dist, breathe, distort, charges = [], [], [], set()
+    cations: dict = {}
+    motifs: dict = {}
+    for c in cases:
+        model = models[c]
+        first = np.asarray(model.shell) == 1
+        dist.append(float(np.linalg.norm(np.asarray(model.vectors)[first], axis=1).mean()))
+        for el in sorted({model.elements[i] for i in np.flatnonzero(first)}):
+            cations[el] = cations.get(el, 0) + 1
+        motif = f"{model.point_group}, {int(first.sum())}-fold"
+        motifs[motif] = motifs.get(motif, 0) + 1
+        targets = by_case[c]
+        q = next((t.charge for t in targets if getattr(t, "charge", None) is not None), None)
+        if q is not None:
+            charges.add(int(q))
+        site = next((t.site for t in targets if getattr(t, "site", None) is not None), None)
+        desc = {}
+        if site is not None and hasattr(site, "descriptors"):
+            try:
+                desc = site.descriptors()
+            except (OrbtoolError, ValueError, AttributeError):
+                desc = {}
+        if "breathing_fraction" in desc:
+            breathe.append(float(desc["breathing_fraction"]))
+        if "distortion_total" in desc:
+            distort.append(float(desc["distortion_total"]))
+    return DataCoverage(cases=cases, distance=(min(dist), max(dist)),
+                        breathing=(min(breathe), max(breathe)) if breathe else None,
+                        distortion=max(distort) if distort else None, cations=dict(sorted(cations.items())),
+                        charges=tuple(sorted(charges)), motifs=dict(sorted(motifs.items())), harness=harness)

@@ -1,4 +1,9 @@
-"""Two routes to a state's character, side by side.
+"""A state's character: the one rule that says which level is *the defect state*, and two routes to a
+state's character side by side.
+
+The rule (:data:`STATE_RULE`, :func:`choose_defect_state`, :func:`defect_state`) lives here, below every
+surface and below the fit, so that :func:`orbtool.family.analyze_case`, :func:`orbtool.tb.targets_from_case`
+and the app apply the same rule (:mod:`orbtool.story` re-exports it).
 
 The projection route (:func:`orbtool.analysis.states.in_gap_states`) weighs a
 state by its projections on atom-centred spheres/orbitals; the grid route
@@ -19,7 +24,61 @@ from ..grid import Grid
 from ._records import Record
 from .density import Partition, partition
 
-__all__ = ["RouteComparison", "compare_routes"]
+__all__ = ["RouteComparison", "compare_routes", "STATE_RULE", "RESONANT_WINDOW", "RESONANT_MIN_SHELL",
+           "choose_defect_state", "defect_state"]
+
+#: how far outside the gap (eV) a level may lie and still be the defect state (resonant level)
+RESONANT_WINDOW = 0.3
+#: first-shell weight a resonant level needs to count as the vacancy's level: most of it on the vacancy's
+#: neighbours (common practice for "localised"; the demo-data tests use the same 50 %)
+RESONANT_MIN_SHELL = 0.5
+
+STATE_RULE = ("the defect state is the level — a whole degenerate multiplet — with the largest weight on the "
+              "vacancy's first neighbour shell, among the levels in the gap; when the gap holds none, a level "
+              f"up to {RESONANT_WINDOW} eV outside it (resonant) with at least {RESONANT_MIN_SHELL:.0%} on the "
+              "first shell, its energy used as it is")
+
+
+def choose_defect_state(states):
+    """The defect state among ``states`` (DefectState multiplets) by :data:`STATE_RULE` (None if empty).
+
+    Ties on the first-shell weight (to 1e-9) go to spin up, then to the deeper level (lower energy), so the
+    choice is a total order and does not depend on the order of ``states``.
+    """
+    states = list(states)
+    if not states:
+        return None
+    return max(states, key=lambda s: (round(float(s.shell_fractions.get(1, 0.0)), 9), -int(s.spin),
+                                      -float(s.above_vbm)))
+
+
+def defect_state(case, site, states=None):
+    """Apply :data:`STATE_RULE` to one case.
+
+    Parameters
+    ----------
+    case : DefectCase
+    site : VacancySite
+    states : list of DefectState, optional
+        The case's in-gap states (:func:`orbtool.analysis.in_gap_states`), when already computed.
+
+    Returns
+    -------
+    state : DefectState or None
+    resonant : bool — the state lies outside the gap (chosen by character, energy used as it is).
+    states : list of DefectState — the in-gap states.
+    """
+    from .states import in_gap_states
+
+    if states is None:
+        states = list(in_gap_states(case, site=site))
+    state = choose_defect_state(states)
+    if state is not None:
+        return state, False, states
+    near = [s for s in in_gap_states(case, site=site, tol=-RESONANT_WINDOW)
+            if s.shell_fractions.get(1, 0.0) >= RESONANT_MIN_SHELL]
+    state = choose_defect_state(near)
+    return state, state is not None, states
 
 
 @dataclass(frozen=True, eq=False)

@@ -124,21 +124,62 @@ def _axial_subgroup(ops, orders):
     return np.flatnonzero(np.abs(np.abs(np.einsum("gij,j->gi", ops, axis) @ axis) - 1.0) < 1e-6)
 
 
+def _random_symmetric(rng, n):
+    """A seeded random symmetric matrix (n, n) in the Cartesian displacement coordinates (drawn there, not
+    in a basis an eigensolver returned, so that it is the same on every machine)."""
+    a = rng.normal(size=(n, n))
+    return a + a.T
+
+
+def _pivoted_basis(proj, tol=1e-9):
+    """Orthonormal basis of the range of the projector ``proj`` (m, m) by greedy pivoting on its columns:
+    the projection of the Cartesian unit displacement with the largest weight first (ties to the lower
+    index), then the next in what is left. It depends on the subspace only, never on a basis of it."""
+    q = np.array(proj, dtype=float)
+    rank = int(round(np.trace(q)))
+    out = []
+    for _ in range(rank):
+        d = np.diag(q)
+        j = int(np.argmax(d >= d.max() - tol))
+        v = q[:, j] / np.sqrt(d[j])
+        out.append(v)
+        q = q - np.outer(v, v)
+    return np.column_stack(out)
+
+
 def _canonical_basis(b, dsub, rng):
     """Basis of a block adapted to the axial subgroup: most symmetric patterns first, signs fixed.
 
     Inside a degenerate block (E, T, ...) any rotation of the basis is as
     good; reducing by the operations that keep the principal axis makes the
     first pattern the one that keeps most of them (for Td and Oh: E.1 is the
-    tetragonal distortion along the four-fold axis, D2d or D4h).
+    tetragonal distortion along the four-fold axis, D2d or D4h). Where a
+    part of the block stays degenerate under that subgroup, its basis comes
+    from the part's projector by :func:`_pivoted_basis`. Every step uses the
+    block's projector b bᵀ, not the basis ``b`` an eigensolver returned, so
+    the patterns are the same whatever the LAPACK kernel.
     """
     dim = b.shape[1]
+    pb = b @ b.T
     if dim > 1:
-        small = np.einsum("ik,gij,jl->gkl", b, dsub, b)  # the subgroup acting inside the block
-        a = rng.normal(size=(dim, dim))
-        w, vec = np.linalg.eigh((small @ (a + a.T) @ small.transpose(0, 2, 1)).sum(axis=0))
-        b = b @ vec
-        fixed = np.array([np.count_nonzero(np.abs(small @ vec[:, k] - vec[:, k]).max(axis=1) < 1e-6)
+        a = pb @ _random_symmetric(rng, len(b)) @ pb
+        avg = (dsub @ a @ dsub.transpose(0, 2, 1)).sum(axis=0)  # commutes with the subgroup, lives in the block
+        w, vec = np.linalg.eigh(b.T @ avg @ b)
+        scale = max(1.0, float(np.abs(w).max()))
+        parts, cur = [], [0]
+        for k in range(1, dim):
+            if w[k] - w[k - 1] < 1e-8 * scale:
+                cur.append(k)
+            else:
+                parts.append(cur)
+                cur = [k]
+        parts.append(cur)
+        cols = []
+        for part in parts:
+            sub = b @ vec[:, part]
+            cols.append(sub if len(part) == 1 else _pivoted_basis(sub @ sub.T))
+        b = np.column_stack(cols)
+        fixed = np.array([np.count_nonzero(np.abs(dsub @ b[:, k] - b[:, k]).max(axis=1) < 1e-6)
                           for k in range(dim)])
         b = b[:, np.argsort(-fixed, kind="stable")]
     big = np.argmax(np.abs(b) > np.abs(b).max(axis=0) - 1e-9, axis=0)
@@ -157,9 +198,12 @@ def symmetry_adapted_modes(vectors, operations, permutations, seed: int = 202612
     permutations : (nop, n) int
         How each operation permutes the shell atoms.
     seed : int
-        Seed of the generic symmetric matrices (results do not depend on it
-        except for the basis inside blocks that stay degenerate under the
-        operations keeping the principal axis).
+        Seed of the generic symmetric matrices, drawn in the Cartesian
+        displacement coordinates. The blocks and their patterns do not
+        depend on the machine (only projectors onto eigenspaces are used,
+        never one eigenvector of a degenerate eigenspace); where an
+        irreducible representation occurs twice, how its two copies are
+        split depends on the seed.
 
     Returns
     -------
@@ -182,8 +226,8 @@ def symmetry_adapted_modes(vectors, operations, permutations, seed: int = 202612
         return breathing, []
     dmat = representation(ops, permutations)
     rng = np.random.default_rng(seed)
-    a = rng.normal(size=(q.shape[1], q.shape[1]))
-    a = q @ (a + a.T) @ q.T
+    pq = q @ q.T  # projector onto the internal displacements (independent of the basis q)
+    a = pq @ _random_symmetric(rng, 3 * n) @ pq
     m = (dmat @ a @ dmat.transpose(0, 2, 1)).sum(axis=0)
     w, vec = np.linalg.eigh(q.T @ m @ q)
     basis = q @ vec

@@ -259,10 +259,15 @@ def operation_order(r, max_order: int = 60) -> int:
 
 
 def rotation_axis(r) -> np.ndarray:
-    """Unit axis of the proper part det(R)·R (eigenvector of eigenvalue +1)."""
+    """Unit axis of the proper part det(R)·R (eigenvector of eigenvalue +1), its sign fixed (largest component
+    positive, ties to the first) so that it does not depend on the eigensolver. Meaningful for rotations other
+    than the identity (whose eigenvalue +1 is threefold)."""
     p = np.linalg.det(r) * r
     w, v = np.linalg.eig(p)
-    return np.real(v[:, np.argmin(np.abs(w - 1.0))])
+    axis = np.real(v[:, np.argmin(np.abs(w - 1.0))])
+    axis = axis / np.linalg.norm(axis)
+    big = int(np.argmax(np.abs(axis) >= np.abs(axis).max() - 1e-9))
+    return axis * np.sign(axis[big])
 
 
 def name_point_group(ops) -> str:

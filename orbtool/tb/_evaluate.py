@@ -2,6 +2,11 @@
 
 Parameter values may be scalars or arrays of shape (B,); geometries come in a batch of G (1 or B).
 Everything is vectorised: one batched ``numpy.linalg.eigh`` per call.
+
+Degenerate multiplets are one object (the rule of :data:`DEGENERATE`): the defect level is a whole
+multiplet, chosen by the multiplet's mean dangling weight; its energy is the multiplet's mean energy
+and every weight is that of the sum of its projectors, so nothing depends on the basis the eigensolver
+returns inside a degenerate subspace (which differs between BLAS/LAPACK kernels).
 """
 
 from __future__ import annotations
@@ -11,7 +16,59 @@ import numpy as np
 from ..errors import ModelError
 from ._levels import Levels
 
-_DEGENERATE = 1e-5  # eV: levels closer than this are one multiplet
+#: eV. The one degeneracy rule of the model side: in ascending order, a level more than DEGENERATE above
+#: the first level of the current multiplet starts a new one (anchored at the first member, as the symmetry
+#: labels of :func:`orbtool.tb.symmetry.label_levels` group them; the labeller is passed this value).
+#: 0.1 meV lies far above the eigensolver's rounding (~1e-14 eV for these matrices) and above the
+#: splitting that coordinates rounded to 1e-5 Å can cause (|dt/dd| δ ≈ 2 eV/Å × 5e-6 Å ≈ 1e-5 eV), and
+#: far below any energy orbtool reports (1 meV).
+DEGENERATE = 1e-4
+#: dangling weights of two multiplets closer than this count as equal (the lower multiplet is taken)
+_TIE = 1e-9
+
+
+def multiplet_bounds(E, tol: float = DEGENERATE):
+    """First and last level index (inclusive) of the multiplet each level belongs to.
+
+    Parameters
+    ----------
+    E : ndarray (B, m) — ascending energies, eV.
+    tol : float — see :data:`DEGENERATE`.
+
+    Returns
+    -------
+    first, last : int ndarrays (B, m)
+    """
+    E = np.asarray(E, dtype=float)
+    B, m = E.shape
+    k = np.arange(m)
+    brk = np.ones((B, m), dtype=bool)
+    brk[:, 1:] = np.diff(E, axis=1) >= tol                   # consecutive chaining
+    first = np.maximum.accumulate(np.where(brk, k, 0), axis=1)
+    bad = np.flatnonzero((E - np.take_along_axis(E, first, axis=1) >= tol).any(axis=1))
+    for b in bad:  # a chain of close levels spans more than tol: anchor at each multiplet's first member
+        start = 0
+        for j in range(m):
+            if E[b, j] - E[b, start] >= tol:
+                start = j
+            first[b, j] = start
+    is_last = np.ones((B, m), dtype=bool)
+    is_last[:, :-1] = first[:, 1:] != first[:, :-1]
+    last = np.minimum.accumulate(np.where(is_last, k, m - 1)[:, ::-1], axis=1)[:, ::-1]
+    return first, last
+
+
+def multiplet_mean(X, first, last):
+    """Mean of X (B, m) over each level's multiplet (every member gets the same value), shape (B, m)."""
+    cs = np.concatenate([np.zeros((X.shape[0], 1)), np.cumsum(X, axis=1)], axis=1)
+    tot = np.take_along_axis(cs, last + 1, axis=1) - np.take_along_axis(cs, first, axis=1)
+    return tot / (last - first + 1)
+
+
+def multiplet_members(energies, index: int, tol: float = DEGENERATE) -> np.ndarray:
+    """Indices of the multiplet that level ``index`` of ``energies`` (m,) belongs to (by :data:`DEGENERATE`)."""
+    first, last = multiplet_bounds(np.asarray(energies, dtype=float)[None], tol)
+    return np.arange(first[0, index], last[0, index] + 1)
 
 
 def fixed_level_index(model, m: int):
@@ -128,21 +185,32 @@ class CompiledCluster:
 
     # ------------------------------------------------------------------ levels
     def solve(self, p: dict) -> Levels:
-        """Diagonalise and pick the defect level (see :class:`ClusterModel` for the rule)."""
+        """Diagonalise and pick the defect level (see :class:`ClusterModel` for the rule).
+
+        The defect level is a whole multiplet (:data:`DEGENERATE`): with a fixed rank, the multiplet holding
+        that rank; otherwise the multiplet with the largest mean dangling weight (ties within 1e-9 go to the
+        lower one). ``index`` is the multiplet's first (lowest) member, ``level`` its mean energy, and the
+        weights are those of the sum of its projectors divided by its size."""
         H = self.hamiltonian(p)
-        E, V = np.linalg.eigh(H)
+        E, V = _eigh(H)
         B, m = E.shape
         W = V ** 2  # (B, nbasis, nlevel)
         model = self.model
+        first, last = multiplet_bounds(E)
         if model.orbitals == "hybrid":
             dang = np.ones((B, m))
         else:
-            dang = self._dangling(V, p, B)
+            dang = multiplet_mean(self._dangling(V, p, B), first, last)  # per level: its multiplet's mean
         fixed = fixed_level_index(model, m)
-        idx = np.full(B, fixed) if fixed is not None else np.argmax(dang, axis=1)
-        level = E[np.arange(B), idx]
-        multiplet = (np.abs(E - level[:, None]) < _DEGENERATE).astype(float)  # (B, m)
+        if fixed is not None:
+            pick = np.full(B, fixed)
+        else:
+            pick = np.argmax(dang >= dang.max(axis=1, keepdims=True) - _TIE, axis=1)
+        rows = np.arange(B)
+        idx = first[rows, pick]
+        multiplet = (first == idx[:, None]).astype(float)  # (B, m)
         deg = multiplet.sum(1)
+        level = (E * multiplet).sum(1) / deg
         w_orb = np.einsum("bnm,bm->bn", W, multiplet) / deg[:, None]  # (B, nbasis)
         if model.orbitals == "hybrid":
             f = np.clip(self._param(p, "s_fraction", B), 0, 1)
@@ -155,7 +223,7 @@ class CompiledCluster:
             atom_w = np.zeros((B, len(model.elements)))
             np.add.at(atom_w.T, self.orb_atom, w_orb.T)
         shell1 = atom_w[:, self.first].sum(1)
-        dang_w = (dang * multiplet).sum(1) / deg
+        dang_w = dang[rows, idx]
         return Levels(E, V, idx, level, s_w, p_w, d_w, shell1, dang_w, atom_w, labeller=self._labeller(E, V))
 
     def _labeller(self, E, V):
@@ -174,7 +242,8 @@ class CompiledCluster:
             if self._classes is None:
                 return ["?"] * E.shape[1]
             return label_levels(E[b], V[b], self.vectors[g], model.point_group, model.operations, self.c.lmax,
-                                model.orbitals == "hybrid", classes_cols=self._classes)
+                                model.orbitals == "hybrid", tol_e=DEGENERATE,
+                                classes_cols=self._classes)
         return labels
 
     def _dangling(self, V, p, B):
@@ -193,3 +262,9 @@ class CompiledCluster:
         c = np.broadcast_to(c, (B, nfirst, no)) if self.G == 1 else c
         proj = np.einsum("bao,baom->bam", c, Vf)
         return (proj ** 2).sum(1)
+
+
+def _eigh(H):
+    """Eigenvalues (ascending) and eigenvectors of the batch H; one name so that tests can stand in for
+    another LAPACK kernel (a different basis inside degenerate subspaces)."""
+    return np.linalg.eigh(H)

@@ -77,27 +77,36 @@ class Target:
                 raise FitError(f"target {self.case!r}: {name} must be finite or None, got {v!r}")
 
 
-def _first_shell_sp(state, site, multiplet=None):
-    """s/(s+p) of the state on the first-shell atoms (the dangling orbitals' character), summed over
-    its multiplet; None when the site or the per-atom, per-orbital weights are missing."""
+def _first_shell_sp(state, site):
+    """s/(s+p) of the state on the first-shell atoms (the dangling orbitals' character); a DefectState of a
+    degenerate multiplet carries the weights of the sum of its projectors. None when the site or the
+    per-atom, per-orbital weights are missing."""
     first = [int(nb.index) for nb in (getattr(site, "first_shell", None) or ())]
-    members = multiplet or [state]
-    ao = [getattr(m, "atom_orbital", None) for m in members]
+    ao = getattr(state, "atom_orbital", None)
     names = tuple(getattr(state, "orbital_names", ()) or ())
-    if not first or any(a is None for a in ao) or not names or max(first) >= np.asarray(ao[0]).shape[0]:
+    if not first or ao is None or not names or max(first) >= np.asarray(ao).shape[0]:
         return None
-    w = sum(np.asarray(a, dtype=float)[first] for a in ao).sum(axis=0)
+    w = np.asarray(ao, dtype=float)[first].sum(axis=0)
     s_w = float(sum(w[k] for k, n in enumerate(names) if n == "s"))
     p_w = float(sum(w[k] for k, n in enumerate(names) if n in ("p", "px", "py", "pz")))
     return s_w / (s_w + p_w) if s_w + p_w > 0 else None
 
 
-def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_character, labels, charge,
-                   multiplet=None):
+def _identity(state):
+    """(bands in the multiplet, electrons in it) of a DefectState; (None, None) for a state that does not
+    say which bands it holds (a hand-made record: the model then counts electrons formally)."""
+    bands = getattr(state, "bands", None)
+    if not bands:
+        return None, None
+    occ = getattr(state, "occupation", None)
+    return len(tuple(bands)), (None if occ is None else float(occ))
+
+
+def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_character, labels, charge):
     above = float(state.above_vbm)
     s_frac = shell1 = None
     ow = getattr(state, "orbital_weights", None) or {}
-    first_sp = _first_shell_sp(state, site, multiplet) if use_character else None
+    first_sp = _first_shell_sp(state, site) if use_character else None
     if first_sp is not None:
         s_frac = first_sp
     elif use_character and ("s" in ow and "p" in ow) and (ow["s"] + ow["p"]) > 0:
@@ -111,10 +120,10 @@ def _state_targets(name, state, site, sigma_level, sigma_s, sigma_shell, use_cha
         gap = float(edges.gap)
     elif getattr(state, "below_cbm", None) is not None:
         gap = above + float(state.below_cbm)
+    degeneracy, occupation = _identity(state)
     return Target(case=name, above_vbm=above, sigma_level=sigma_level, s_fraction=s_frac, sigma_s=sigma_s,
                   shell1=shell1, sigma_shell=sigma_shell, gap=gap, site=site, labels=dict(labels),
-                  charge=charge, degeneracy=len(multiplet) if multiplet else None,
-                  occupation=float(sum(m.occupation for m in multiplet)) if multiplet else None)
+                  charge=charge, degeneracy=degeneracy, occupation=occupation)
 
 
 def targets_from_case(case, site=None, state=None, *, sigma_level: float = 0.05, sigma_s: float = 0.05,
@@ -127,11 +136,16 @@ def targets_from_case(case, site=None, state=None, *, sigma_level: float = 0.05,
     site : VacancySite, optional
         Located with ``orbtool.analysis.locate_vacancy`` when not given.
     state : DefectState or list of them, optional
-        From ``orbtool.analysis.in_gap_states`` when not given (the first in-gap state).
+        Default: the defect state by the one rule of :func:`orbtool.analysis.choose_defect_state`
+        (a whole degenerate multiplet; a resonant level just outside the gap chosen by character when the
+        gap holds none), the same state :func:`orbtool.family.analyze_case` reports.
     sigma_level, sigma_s, sigma_shell : float
         Uncertainties assigned to the level (eV) and to the character fractions.
     use_character : bool
         Also fit the s/(s+p) character and the first-shell fraction when available.
+
+    Each target carries its state's identity: the number of bands in the multiplet and the electrons in it
+    (``Target.degeneracy``, ``Target.occupation``), from the DefectState itself.
     """
     if site is None:
         from ..analysis import locate_vacancy  # lazy: tb depends on analysis only here
@@ -140,22 +154,14 @@ def targets_from_case(case, site=None, state=None, *, sigma_level: float = 0.05,
             raise FitError(f"case {case.name!r} has no host structure: pass site=... explicitly")
         site = locate_vacancy(case.host, case.defect)
     if state is None:
-        from ..analysis import in_gap_states
+        from ..analysis import defect_state
 
-        found = in_gap_states(case, site=site)
-        if not found:
-            raise FitError(f"case {case.name!r}: no in-gap state found; pass state=... explicitly")
-        state = found[0]
-    else:
-        found = None
+        state, _, found = defect_state(case, site)
+        if state is None:
+            raise FitError(f"case {case.name!r}: no in-gap state (nor a resonant level with most of its weight on "
+                           f"the first shell) found; pass state=... explicitly")
     states = state if isinstance(state, (list, tuple)) else [state]
     labels = getattr(case, "labels", {}) or {}
     charge = getattr(case, "charge", None)
-    out = []
-    for s in states:
-        mult = None
-        if found is not None:  # the whole degenerate multiplet of the chosen band (same spin, within 1 meV)
-            mult = [o for o in found if o.spin == s.spin and abs(o.energy_aligned - s.energy_aligned) < 1e-3]
-        out.append(_state_targets(case.name, s, site, sigma_level, sigma_s, sigma_shell, use_character, labels,
-                                  charge, mult))
-    return out
+    return [_state_targets(case.name, s, site, sigma_level, sigma_s, sigma_shell, use_character, labels, charge)
+            for s in states]

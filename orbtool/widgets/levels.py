@@ -147,6 +147,15 @@ def _swap_candidates(elements) -> list[str]:
     return out
 
 
+def validated_ranges_html(fit) -> str:
+    """The "validated ranges" panel: what the fitted data cover and what the DFT harness measured
+    (:func:`orbtool.story.validated_ranges`), formatted; not the optimiser's bounds."""
+    from ..story import validated_ranges
+
+    rows = "<br>".join(f"<b>{esc(k)}</b>: {esc(v)}" for k, v in validated_ranges(fit).lines())
+    return f'<details><summary>validated ranges</summary><small>{rows}</small></details>'
+
+
 class LevelExplorer:
     """Level diagram + knobs for one fitted case.
 
@@ -240,9 +249,7 @@ class LevelExplorer:
         self.notes = w.HTML()
         self.mode_note = w.HTML()
         self.caution = w.HTML()
-        limits = "<br>".join(f"<b>{k}</b>: [{lo:.3g}, {hi:.3g}] — {esc(note)}"
-                             for k, (lo, hi, note) in self.ranges.items())
-        self.limits = w.HTML(f'<details><summary>validated ranges</summary><small>{limits}</small></details>')
+        self.limits = w.HTML(validated_ranges_html(self.fit))
         self._holding = False
         for c in (self.breathing, self.mode, self.amplitude, self.coupling, self.onsite, self.swap):
             c.observe(self._on_change, names="value")
