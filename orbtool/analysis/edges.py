@@ -166,7 +166,8 @@ def band_localisation(atom_weights, first_shell, *, factor: float = 2.0) -> dict
 
     Returns
     -------
-    dict with ``localised`` (bool, or None when the weights are all zero), ``first_shell_share``,
+    dict with ``localised`` (bool, or None when it cannot be judged: all weights zero, no first shell, or a
+    cell so small that ``factor`` × the uniform share reaches 1), ``first_shell_share``,
     ``uniform_share``, ``ipr``, ``participation`` and ``criterion`` (text).
     """
     w = np.clip(np.asarray(atom_weights, float), 0.0, None)
@@ -180,6 +181,11 @@ def band_localisation(atom_weights, first_shell, *, factor: float = 2.0) -> dict
                 "ipr": float("nan"), "participation": float("nan"),
                 "criterion": crit + " (not judged: no atom weights or no first shell)"}
     share = float(w[first].sum()) / total
+    if factor * uniform >= 1.0:
+        return {"localised": None, "first_shell_share": share, "uniform_share": uniform, "ipr": float("nan"),
+                "participation": float("nan"),
+                "criterion": crit + f" = {factor * uniform:.3f} (not judged: the first shell holds {len(first)} "
+                f"of the cell's {n} atoms, so no share can pass; a larger supercell is needed)"}
     ipr = float((w ** 2).sum()) / total ** 2
     return {"localised": bool(share >= factor * uniform), "first_shell_share": share, "uniform_share": uniform,
             "ipr": ipr, "participation": 1.0 / ipr, "criterion": crit + f" = {factor * uniform:.3f}"}
