@@ -25,7 +25,7 @@ import numpy as np
 from ..errors import InputFormatError, OrbtoolError
 from ._records import Record
 from .alignment import Alignment, align, resolve_site
-from .edges import BandEdges, NoGapError, band_edges, band_localisation, localised_states
+from .edges import LOCALISATION_FACTOR, BandEdges, NoGapError, band_edges, band_localisation, localised_states
 
 __all__ = ["NoGapError", "BandEdges", "band_edges", "band_localisation", "DefectState", "GapStates", "in_gap_states",
            "multiplets", "Alignment", "align"]
@@ -248,7 +248,8 @@ def _kept_note(v, factor, natoms):
 
 def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=None, tol: float = 0.05,
                   threshold: float | None = None, dispersion_warning: float = 0.1,
-                  degeneracy: float = 1e-3, localised: bool = True, localisation_factor: float = 2.0) -> GapStates:
+                  degeneracy: float = 1e-3, localised: bool = True,
+                  localisation_factor: float = LOCALISATION_FACTOR) -> GapStates:
     """Bands of the defect cell inside the host gap, with their character.
 
     Parameters
@@ -287,7 +288,7 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
         Levels without atom weights, or without a site with shells, cannot be judged and are
         kept, with a note. ``False`` keeps every level in the gap.
     localisation_factor : float
-        See ``localised`` (2: a rule of thumb, common practice).
+        See ``localised`` (default :data:`~orbtool.analysis.edges.LOCALISATION_FACTOR`, 1.5: a rule of thumb).
 
     Returns
     -------
