@@ -155,6 +155,7 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str
         parts.append("<h2>Kohn–Sham state, transition levels and SRH factor</h2>")
         for dl in res.levels.values():
             parts.append("<pre>" + html.escape(dl.summary()) + "</pre>")
+    parts.append(_conventions_section(fam, res))
     if res.errors or res.notes:
         parts.append("<h2>Problems and notes</h2><ul>" +
                      "".join(f"<li>{html.escape(k)}: {html.escape(v)}</li>" for k, v in res.errors.items()) +
@@ -218,3 +219,84 @@ def case_report(fam, res, name: str, fit=None, *, demo: bool = False) -> str:
     parts.append("<h2>What was read</h2><pre>" + html.escape(case.summary()) + "</pre>")
     parts.append("</body></html>")
     return _relative_paths("\n".join(parts))
+
+
+# ---------------------------------------------------------------- how the numbers were referred (owndata)
+def data_conventions(case, analysis=None) -> dict:
+    """How one case's numbers were put on a common footing: plain text lines for a report.
+
+    Returns
+    -------
+    dict with ``alignment`` (the routes, each with its shift and spread over the far atoms, eV, the
+    one used marked, and the disagreement warning of :func:`orbtool.analysis.alignment.align`:
+    routes more than 0.1 eV apart), ``edges`` (the band edges the levels are referred to: the true
+    edges of a k-resolved calculation or the user, or the supercell's own k-points, with the
+    folding warning) and ``units`` (the unit convention of every grid read and the reason it was
+    assumed; energies are in eV). Each value is a list of str; ``warnings`` collects the warnings.
+    """
+    from .analysis import align, band_edges
+    from .errors import OrbtoolError
+    out = {"alignment": [], "edges": [], "units": [], "warnings": []}
+    site = getattr(analysis, "site", None)
+    try:
+        al = align(case, site) if site is not None else None
+    except OrbtoolError as exc:
+        al = None
+        out["alignment"].append(f"not aligned: {exc}")
+    if al is not None:
+        out["alignment"].append(f"shift {al.shift:+.4f} eV (added to defect-cell energies), spread {al.spread:.4f} eV, "
+                                f"by {al.method.split(' [WARNING')[0]}")
+        for r in al.routes:
+            window = (f", window {r['window'][0]:.2f} … {r['window'][1]:.2f} eV" if r.get("window") is not None
+                      else "")
+            atoms = f", {r['n_atoms']} far atoms" if r.get("n_atoms") else ""
+            out["alignment"].append(f"route {r['route']:<18} {r['shift']:+.4f} eV  spread {r['spread']:.4f} eV"
+                                    f"{atoms}{window}")
+        if not al.routes:
+            out["alignment"].append("one route only: no independent cross-check was possible")
+        out["warnings"] += [f"alignment: {w}" for w in al.warnings]
+    elif site is None and not out["alignment"]:
+        out["alignment"].append("not aligned: no vacancy site")
+    state = getattr(analysis, "state", None) or next(iter(getattr(analysis, "states", None) or ()), None)
+    edges = getattr(state, "edges", None)
+    if edges is None:
+        try:
+            data = case.host_projections if case.host_projections is not None else case.host_pdos
+            edges = band_edges(data) if data is not None else None
+        except OrbtoolError as exc:
+            out["edges"].append(f"no band edges: {exc}")
+    if edges is not None:
+        out["edges"].append(f"VBM {edges.vbm:.4f} eV, CBM {edges.cbm:.4f} eV, gap {edges.gap:.4f} eV (host scale) "
+                            f"from {edges.method}")
+        if edges.sampled is not None:
+            v, c = edges.sampled
+            out["edges"].append(f"true band edges used; the supercell's own k-points give VBM {v:.4f}, CBM {c:.4f} "
+                                f"eV, gap {c - v:.4f} eV")
+        else:
+            out["edges"].append("the supercell's own k-points (no true band edges given): a Γ-only supercell can "
+                                "fold the band extrema away; give edges= (a band-structure file or the gap)")
+        out["warnings"] += [f"band edges: {w}" for w in edges.warnings]
+    for who, grids in (("defect", case.grids), ("host", case.host_grids)):
+        for role, g in grids.items():
+            conv = g.meta.get("unit_convention")
+            why = g.meta.get("unit_convention_reason") or "the file's own units"
+            out["units"].append(f"{who} grid '{role}' ({g.unit}): " + (f"{conv} convention — " if conv else "") + why)
+    if not out["units"]:
+        out["units"].append("no grids read: no unit convention to decide")
+    out["units"].append("energies (band energies, PDOS, potentials) in eV as the files state them")
+    return out
+
+
+def _conventions_section(fam, res) -> str:
+    """HTML: per case, the alignment routes, band edges and unit conventions (:func:`data_conventions`)."""
+    blocks = []
+    for r in res.results:
+        try:
+            d = data_conventions(fam[r.name], r)
+        except Exception as exc:  # one case must never cost the user the report
+            d = {"alignment": [f"not reported: {type(exc).__name__}: {exc}"], "edges": [], "units": [], "warnings": []}
+        text = ["alignment:", *("  " + x for x in d["alignment"]), "band edges:", *("  " + x for x in d["edges"]),
+                "units:", *("  " + x for x in d["units"])] + [f"WARNING: {w}" for w in d["warnings"]]
+        blocks.append(f"<h3>{html.escape(r.name)}</h3><pre>" + html.escape(_relative_paths("\n".join(text)))
+                      + "</pre>")
+    return ("<h2>Alignment, band edges and units per case</h2>" + "".join(blocks)) if blocks else ""

@@ -112,7 +112,7 @@ def test_localisation_of_the_engine_state():
     # the engine's own Löwdin weights of its F-centre state: localised on the six first-shell Li
     loc = band_localisation(rec["state_lowdin_atoms"], first)
     assert loc["localised"] and loc["first_shell_share"] == pytest.approx(0.5597, abs=1e-3)
-    # the host's valence states just below the gap are not (share below twice the uniform 6/26)
+    # the host's valence states just below the gap are not (share below 1.5 × the uniform 6/26)
     p = case.projections
     deep = [b for b in range(p.nbands)
             if p.occupations[0, 0, b] > 0 and p.energies[0, 0, b] < rec["state_energy_eV"] - 5]
@@ -129,9 +129,13 @@ def test_only_localised_states_are_defect_levels():
     rec = _engine("vac")
     # edges opened wide on purpose so that the top valence bands (F 2p, below −10 eV) count as "in the gap"
     wide = BandEdges(vbm=-10.9, cbm=-4.3, gap=6.6, by_spin={0: (-10.9, -4.3)}, method="test: widened")
-    states = in_gap_states(case, site, edges=wide, alignment=0.0)
+    states = in_gap_states(case, site, edges=wide, alignment=0.0, localised=False)
     kept, dropped = localised_states(states, site)
     # the engine's F-centre state (its own index and spin) is the one defect level
     assert [(s.band, s.spin) for s, _ in kept] == [(rec["state_index"], rec["state_spin"])]
     assert len(dropped) >= 6 and all(s.energy < -10 for s, _ in dropped)
     assert all("first-shell share" in v["criterion"] for _, v in dropped)
+    # in_gap_states applies the same criterion by default
+    default = in_gap_states(case, site, edges=wide, alignment=0.0)
+    assert [(s.band, s.spin) for s in default] == [(s.band, s.spin) for s, _ in kept]
+    assert [s.bands for s, _ in default.dropped] == [s.bands for s, _ in dropped]

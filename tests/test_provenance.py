@@ -179,7 +179,11 @@ def test_defect_state_choice_is_noted():
     dangling = np.zeros(n)
     dangling[first] = 0.2
     dangling[second] = 0.1 / 12
-    case, _ = _si_case([flat, flat, dangling, flat], [-1.0, -0.2, 0.3, 1.0], [2.0, 2.0, 0.0, 0.0])
+    # the other in-gap level is localised too (40 % on the first shell), less so: a level spread evenly
+    # over the cell would not be reported at all (in_gap_states keeps only localised levels)
+    weaker = np.full(n, 0.6 / (n - len(first)))
+    weaker[first] = 0.1
+    case, _ = _si_case([flat, weaker, dangling, flat], [-1.0, -0.2, 0.3, 1.0], [2.0, 2.0, 0.0, 0.0])
     res = analyze_case(case)
     assert res.error is None, res.error
     assert len(res.states) == 2

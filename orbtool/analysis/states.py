@@ -17,6 +17,7 @@ that block. One eigenvector of a multiplet is never used alone.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -24,11 +25,10 @@ import numpy as np
 from ..errors import InputFormatError, OrbtoolError
 from ._records import Record
 from .alignment import Alignment, align, resolve_site
-from .edges import BandEdges, NoGapError, band_edges, band_localisation
+from .edges import LOCALISATION_FACTOR, BandEdges, NoGapError, band_edges, band_localisation, localised_states
 
-__all__ = ["NoGapError", "BandEdges", "band_edges", "band_localisation", "DefectState", "in_gap_states", "multiplets",
-           "Alignment",
-           "align"]
+__all__ = ["NoGapError", "BandEdges", "band_edges", "band_localisation", "DefectState", "GapStates", "in_gap_states",
+           "multiplets", "Alignment", "align"]
 
 _L_NAMES = "spdf"
 
@@ -73,6 +73,10 @@ class DefectState(Record):
     provenance : tuple of str
     bands : tuple of int
         Every band of the multiplet (0-based); ``(band,)`` for a single band.
+    localisation : dict
+        The verdict of :func:`~orbtool.analysis.edges.band_localisation` (``localised``,
+        ``first_shell_share``, ``uniform_share``, ``participation``, ``criterion``); empty when
+        it could not be judged (no site with neighbour shells).
     """
 
     energy: float
@@ -92,6 +96,7 @@ class DefectState(Record):
     edges: BandEdges
     provenance: tuple = field(default_factory=tuple)
     bands: tuple = ()
+    localisation: dict = field(default_factory=dict)
 
     def __post_init__(self):
         if not self.bands:
@@ -198,9 +203,53 @@ def _fair_weights(weights, energies, bands, degeneracy):
     return out
 
 
+class GapStates(list):
+    """The in-gap levels (a list of :class:`DefectState`, sorted by aligned energy) with what was
+    left out.
+
+    Attributes
+    ----------
+    dropped : list of (DefectState, dict)
+        Levels inside the gap that are not localised at the vacancy (folded host states), each with
+        the verdict of :func:`~orbtool.analysis.edges.band_localisation` saying why.
+    notes : tuple of str
+        One note per dropped level (with its numbers), and the warnings of the alignment and of the
+        band edges — the same notes every kept level carries in its ``provenance``.
+    """
+
+    def __init__(self, states=(), dropped=(), notes=()):
+        super().__init__(states)
+        self.dropped = list(dropped)
+        self.notes = tuple(notes)
+
+
+def _numbers(v, factor, natoms):
+    return (f"first-shell share {v['first_shell_share']:.3f} {'≥' if v['localised'] else '<'} {factor:g} × the "
+            f"uniform share {v['uniform_share']:.3f} = {factor * v['uniform_share']:.3f}; spread over "
+            f"{v['participation']:.1f} of {natoms} atoms (participation number)")
+
+
+def _dropped_note(st, v, factor, natoms):
+    """Why a level in the gap is not reported as a defect level (with the numbers)."""
+    where = (f"band {st.band}" if st.degeneracy == 1 else
+             f"the {st.degeneracy}-fold multiplet of bands {', '.join(str(b) for b in st.bands)}")
+    return (f"{where} spin {st.spin} at VBM + {st.above_vbm:.3f} eV is NOT reported as a defect level: not localised "
+            f"at the vacancy ({_numbers(v, factor, natoms)}): a host band state, folded into the supercell's gap or "
+            "brought there by wrong band edges")
+
+
+def _kept_note(v, factor, natoms):
+    if v.get("localised") is None:
+        return f"localisation not judged: {v['criterion']}"
+    if not v["localised"]:                 # kept on request (localised=False)
+        return f"NOT localised at the vacancy, kept on request: {_numbers(v, factor, natoms)}"
+    return f"localised at the vacancy: {_numbers(v, factor, natoms)}"
+
+
 def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=None, tol: float = 0.05,
                   threshold: float | None = None, dispersion_warning: float = 0.1,
-                  degeneracy: float = 1e-3) -> list[DefectState]:
+                  degeneracy: float = 1e-3, localised: bool = True,
+                  localisation_factor: float = LOCALISATION_FACTOR) -> GapStates:
     """Bands of the defect cell inside the host gap, with their character.
 
     Parameters
@@ -229,11 +278,24 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
         degenerate with bands outside it, that band contributes its fair share
         (the mean over the degenerate block), so no weight depends on the
         eigensolver's basis.
+    localised : bool
+        Report a level only if it is localised at the vacancy (default): criterion of
+        :func:`~orbtool.analysis.edges.band_localisation` — its weight on the vacancy's first
+        neighbour shell is at least ``localisation_factor`` times the share a state spread evenly
+        over all atoms would have there (n_first / n_atoms). Other levels in the gap are host
+        band states (e.g. folded into a Γ-only supercell's gap) and are left out, each with a
+        note saying why (``GapStates.dropped`` / ``notes``, and in the kept levels' provenance).
+        Levels without atom weights, or without a site with shells, cannot be judged and are
+        kept, with a note. ``False`` keeps every level in the gap.
+    localisation_factor : float
+        See ``localised`` (default :data:`~orbtool.analysis.edges.LOCALISATION_FACTOR`, 1.5: a rule of thumb).
 
     Returns
     -------
-    list of DefectState
-        Sorted by aligned energy; empty when no level lies in the gap.
+    GapStates
+        A list of DefectState sorted by aligned energy (empty when no level lies in the gap),
+        with ``dropped`` and ``notes``. Every level's provenance holds the alignment's and the
+        band edges' warnings.
     """
     proj = case.projections
     if proj is None:
@@ -275,6 +337,13 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
     elif not any(n.startswith("energies NOT aligned") for n in notes):
         notes.append(f"alignment shift {shift:+.4f} eV given by the caller")
     notes.append(f"band edges: {edges.method}")
+    if edges.sampled is not None:
+        v, c = edges.sampled
+        notes.append(f"levels referred to the true band edges (VBM {edges.vbm:.4f}, CBM {edges.cbm:.4f} eV, gap "
+                     f"{edges.gap:.4f} eV); the supercell's own k-points give VBM {v:.4f}, CBM {c:.4f} eV, gap "
+                     f"{c - v:.4f} eV")
+    warnings = [f"WARNING (alignment): {w}" for w in getattr(alignment, "warnings", ())]
+    warnings += [f"WARNING (band edges): {w}" for w in edges.warnings]
 
     kw = proj.kweights
     mean = np.einsum("k,skb->sb", kw, proj.energies)
@@ -297,7 +366,28 @@ def in_gap_states(case, site=None, *, edges: BandEdges | None = None, alignment=
             out.append(_level(proj, s, bands, e_mean, aligned, shift, edges, ls, first, second, has_shells, notes,
                               dispersion_warning, degeneracy))
     out.sort(key=lambda st: (st.energy_aligned, st.spin))
-    return out
+    return _judged(out, site if has_shells else None, proj.natoms, warnings, localised, localisation_factor)
+
+
+def _judged(states, site, natoms, warnings, localised, factor) -> GapStates:
+    """Keep the localised levels (all when ``localised`` is False or nothing can be judged); every
+    kept level's provenance gets its verdict, the notes on the dropped ones and the warnings."""
+    if site is None:
+        extra = ["localisation not judged: no vacancy site with neighbour shells"] if states else []
+        verdicts = [(st, {}) for st in states]
+        kept, dropped = verdicts, []
+    else:
+        kept, dropped = localised_states(states, site, factor=factor)
+        if not localised:
+            kept, dropped = sorted(kept + dropped, key=lambda sv: (sv[0].energy_aligned, sv[0].spin)), []
+        extra = []
+    drop_notes = [_dropped_note(st, v, factor, natoms) for st, v in dropped]
+    notes = tuple(warnings) + tuple(drop_notes) + tuple(extra)
+    out = []
+    for st, verdict in kept:
+        own = list(st.provenance) + ([_kept_note(verdict, factor, natoms)] if verdict else []) + list(notes)
+        out.append(dataclasses.replace(st, provenance=tuple(own), localisation=dict(verdict)))
+    return GapStates(out, dropped, notes)
 
 
 def _level(proj, s, bands, e_mean, aligned, shift, edges, ls, first, second, has_shells, notes, dispersion_warning,

@@ -156,19 +156,23 @@ def scan_run(folder, *, grids: bool = True, units: str = "auto") -> RunData:
             run.notes.append(f"skipped {f.name}: not a recognised file")
             continue
         found.setdefault(kind, []).append(f)
+    chosen = None
     for f in _structure_order(found):
         try:
             atoms = read_structure(f)
         except InputFormatError as exc:
             run.notes.append(f"skipped {f.name}: {exc.reason}")
             continue
-        run.structure = atoms
+        run.structure, chosen = atoms, f
         run.notes.append(f"structure from {f.name}" + (" (relaxed)" if "CONTCAR" in f.name.upper() else ""))
         calc = getattr(atoms, "calc", None)
         if calc is not None and _has_eigenvalues(calc):
             run.calculator = calc
             run.notes.append(f"{f.name} also carries the engine's eigenvalues ({type(calc).__name__})")
         break
+    if run.structure is not None and run.calculator is None and not any(
+            k in found for k in ("procar", "orbtool-projections", "npz:projections")):
+        _eigenvalues_from_a_log(run, found, chosen)
     atoms = run.structure
     for f in found.get("doscar", []) + found.get("orbtool-pdos", []) + found.get("npz:pdos", []):
         kw = {"atoms": atoms} if "DOSCAR" in f.name.upper() and atoms is not None else {}
@@ -267,6 +271,34 @@ def _run_of(obj, grids, units, who):
         raise InputFormatError(None, None, f"{who} must be a folder, a file or ase.Atoms, got {type(obj).__name__}",
                                field=who)
     return scan_run(obj, grids=grids, units=units)
+
+
+def _eigenvalues_from_a_log(run: RunData, found, chosen) -> None:
+    """No projection file and a structure file without eigenvalues (extxyz, CIF, POSCAR): take them from
+    a code output in the same folder (GPAW's text log, vasprun.xml, ...) whose atoms are the structure's."""
+    import numpy as np
+
+    from .structure import read_structure
+    for f in _structure_order(found):
+        if f == chosen:
+            continue
+        try:
+            atoms = read_structure(f)
+        except InputFormatError:
+            continue
+        calc = getattr(atoms, "calc", None)
+        if calc is None or not _has_eigenvalues(calc):
+            continue
+        same = (len(atoms) == len(run.structure)
+                and atoms.get_chemical_symbols() == run.structure.get_chemical_symbols()
+                and np.allclose(atoms.get_positions(), run.structure.get_positions(), atol=1e-3))
+        if not same:
+            run.notes.append(f"{f.name} carries eigenvalues but not the atoms of the structure file: not used")
+            continue
+        run.calculator = calc
+        run.notes.append(f"band energies and occupations from {f.name} ({type(calc).__name__}), whose atoms are "
+                         "the structure file's")
+        return
 
 
 def _calculator_projections(run: RunData, who: str):
