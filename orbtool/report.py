@@ -71,9 +71,10 @@ def _bokeh_parts(fam, res, fit, rep, case=None):
     figs = {}
     rows = res.table()
     cols = views.family_columns(rows)
-    x = "pair_distance_mean" if "pair_distance_mean" in cols else views.family.numeric_keys(cols)[0]
-    board = views.family_board(cols, x=x, y="above_vbm")
-    figs["board"] = board[0] if isinstance(board, tuple) else board
+    xs = ["pair_distance_mean"] if "pair_distance_mean" in cols else views.family.numeric_keys(cols)
+    if xs and "above_vbm" in cols:  # a board of levels needs a case with a level (and a descriptor)
+        board = views.family_board(cols, x=xs[0], y="above_vbm")
+        figs["board"] = board[0] if isinstance(board, tuple) else board
     story = res.story(rep.name) if rep is not None else None
     if story is not None and story.model is not None:
         m = story.model
@@ -96,6 +97,8 @@ def _bokeh_parts(fam, res, fit, rep, case=None):
             st = views.states_data(rep.states, vbm_shift=vbm, ymax=0.9 * ymax)
             figs["pdos"] = views.pdos_figure(lines, st, gap=edges.gap if edges is not None else None,
                                              title=f"{rep.name}: PDOS, host (dashed) vs defect (solid)")
+    if not figs:
+        return "", {}
     script, divs = components(figs)
     return script, divs
 
@@ -138,6 +141,8 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False, full=N
     parts.append("<h2>Family table</h2>" + _table(res.table(), base))
     if "board" in divs:
         parts.append("<h2>Level depth across the family</h2>" + divs["board"])
+    elif not any(r.ok and r.state is not None for r in res.results):
+        parts.append("<p>No case has an in-gap defect state, so there is no level board.</p>")
     if trends and trends.get("correlation"):
         top = sorted(trends["correlation"].items(), key=lambda kv: -abs(kv[1]))[:6]
         parts.append("<p>Strongest correlations of the level (eV above VBM) with descriptors (Pearson r, "

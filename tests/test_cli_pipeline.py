@@ -78,17 +78,24 @@ def test_broken_case_is_a_row_with_its_reason_everywhere(outputs):
     assert "1 not analysed" in report and "ends inside a line" in report
 
 
-def test_other_cases_outputs_complete_and_equal_to_reading_alone(family, outputs):
+@pytest.fixture(scope="module")
+def alone(family):
+    """The intact case read and analysed on its own (the single-case route)."""
     from orbtool import load_case
     from orbtool.family import analyze_case
+    case = load_case(family / "data/good", host=family / "data/host", name="good",
+                     labels={"motif": "zincblende", "cation": "Sn", "anion": "S"})
+    return case, analyze_case(case)
+
+
+def test_other_cases_outputs_complete_and_equal_to_reading_alone(outputs, alone):
     _, out = outputs
     rows = {r["name"]: r for r in csv.DictReader(io.StringIO((out / "family_table.csv").read_text()))}
     good = rows["good"]
     assert good["status"] == "ok" and good["error"] == ""
-    alone = analyze_case(load_case(family / "data/good", host=family / "data/host", name="good",
-                                   labels={"motif": "zincblende", "cation": "Sn", "anion": "S"}))
-    assert float(good["above_vbm"]) == pytest.approx(alone.state.above_vbm, abs=1e-9)
-    assert float(good["shell1_fraction"]) == pytest.approx(alone.state.shell_fractions[1], abs=1e-9)
+    ref = alone[1].state
+    assert float(good["above_vbm"]) == pytest.approx(ref.above_vbm, abs=1e-9)
+    assert float(good["shell1_fraction"]) == pytest.approx(ref.shell_fractions[1], abs=1e-9)
     assert (out / "report_good.html").exists()
     report = (out / "report_good.html").read_text()
     assert "What was read" in report and "../data/good/PROCAR.gz" in report  # the full case, re-read
@@ -123,3 +130,39 @@ def test_display_paths_never_absolute(tmp_path):
     text = f"{base}/../data/x/PROCAR, line 3: bad; {far}: too; ε(+/0) in e/Å^3 and 1 / 2"
     shown = display_paths(text, base)
     assert shown == "../data/x/PROCAR, line 3: bad; …/tree/case/PROCAR: too; ε(+/0) in e/Å^3 and 1 / 2"
+
+
+def _family(alone, with_motif: bool):
+    """Three copies of the analysed case (names and labels changed) and one broken case."""
+    from dataclasses import replace
+
+    from orbtool.case import Family
+    from orbtool.family import CaseAnalysis, FamilyAnalysis
+    case, res = alone
+    cases, results = [], []
+    for name in ("a", "b", "c"):
+        labels = {"cation": "Sn", "vacancy": "V_S"} | ({"motif": "zincblende"} if with_motif else {})
+        cases.append(case.replace(name=name, labels=labels))
+        results.append(replace(res, name=name, labels=labels, notes=[]))
+    results.append(CaseAnalysis("broken", {"cation": "Sn"}, 0, error="x/PROCAR, line 3: cut"))
+    return FamilyAnalysis(Family(cases=tuple(cases), name="no motifs"), results)
+
+
+@pytest.mark.parametrize("with_motif", [False, True])
+def test_family_without_motif_labels_keeps_its_interactive_board(alone, with_motif):
+    """docs/manifest.md: ``motif`` is optional. A family without it must still get the level-depth
+    board in report.html (bokeh raised "legend_field value must be a string" and the report dropped
+    every interactive figure); the bokeh document must serialise (bokeh.embed.components)."""
+    from bokeh.embed import components
+
+    from orbtool import views
+    from orbtool.report import family_report
+    res = _family(alone, with_motif)
+    cols = views.family_columns(res.table())
+    fig = views.family_board(cols, x="pair_distance_mean", y="above_vbm")
+    script, divs = components({"board": fig[0] if isinstance(fig, tuple) else fig})
+    assert "board" in divs and "pair_distance_mean" in script
+    page = family_report(res.family, res)
+    assert "interactive figures skipped" not in page, res.notes
+    assert "<h2>Level depth across the family</h2>" in page
+    assert "broken" in page and "x/PROCAR, line 3: cut" in page
