@@ -74,6 +74,11 @@ def run_analysis(manifest, out, *, force=False, workers=None, scheduler=None, fi
     trends), ``fit_summary.txt`` (fit summary + explanation + inverse
     question), ``figures/`` (mechanism, PDOS, state slice, trend; SVG, PDF,
     PNG) and ``report.html`` (standalone, opens offline).
+
+    The manifest is checked before ``out`` is created (a bad manifest leaves nothing behind). Cases are
+    read and analysed in the workers (``workers`` local processes, or the dask ``scheduler``, a Client);
+    a case that cannot be read or analysed is a row with its reason in every output, and the others'
+    outputs are complete. Paths in the outputs are shown relative to the manifest's folder.
     """
     t0 = time.perf_counter()
     manifest = check_manifest_file(manifest)  # a bad manifest must not leave an output folder behind
