@@ -28,12 +28,14 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import tempfile
 from pathlib import Path
 
 from .errors import OrbtoolError
 
-__all__ = ["OutputFolder", "MARKER", "LOCK", "TMP_SUFFIX", "atomic_write", "clean_temporaries"]
+__all__ = ["OutputFolder", "MARKER", "LOCK", "TMP_SUFFIX", "atomic_write", "clean_temporaries", "display_path",
+           "display_paths"]
 
 MARKER = ".orbtool-output"
 LOCK = ".orbtool-lock"
@@ -287,3 +289,56 @@ class OutputFolder:
     def _save_marker(self):
         atomic_write(self.root / MARKER, json.dumps({"written_by": "orbtool", "files": sorted(self.written)},
                                                     indent=1), mode=0o666 & ~_umask())
+
+
+# ---------------------------------------------------------------- display paths
+#: a path more than this many folders above the base is shown by its last parts only
+MAX_UP = 2
+_TRAIL = ".,:;)]}'\""
+_ABSOLUTE = re.compile(r"(?<![\w.~+\-/…])/(?:[^\s/'\"<>]+/)+[^\s'\"<>]*")
+
+
+def display_path(path, base=None) -> str:
+    """``path`` as shown in outputs that travel (reports, tables, notes): relative to ``base``
+    (default: the working folder), e.g. ``defects/V_S/q0/PROCAR`` or ``../hosts/ZnS/DOSCAR``; a
+    file more than :data:`MAX_UP` folders above ``base`` (or on another drive) is shown as
+    ``…/`` and its last three parts. Never the machine's absolute path."""
+    if path is None or path == "":
+        return ""
+    p = os.path.abspath(os.fspath(path))
+    b = os.path.abspath(os.fspath(base)) if base not in (None, "") else os.getcwd()
+    try:
+        rel = os.path.relpath(p, b)
+    except ValueError:  # another drive (Windows)
+        rel = None
+    if rel is not None:
+        parts = Path(rel).parts
+        ups = next((i for i, x in enumerate(parts) if x != ".."), len(parts))
+        if ups <= MAX_UP:
+            return Path(rel).as_posix()
+    tail = Path(p).parts[1:][-3:]
+    return "…/" + "/".join(tail)
+
+
+def display_paths(text: str, base=None) -> str:
+    """Every file path inside ``text`` (an error message, a note, a summary) shown with
+    :func:`display_path` relative to ``base``. Paths are recognised by the folders they start
+    with (``base`` as given and resolved, the working folder) and, for any other place, as absolute
+    paths of two or more parts."""
+    if not text:
+        return text
+    b = os.fspath(base) if base not in (None, "") else "."
+    roots = {os.path.abspath(b), os.path.realpath(b), os.getcwd(), os.path.realpath(os.getcwd())}
+    if b not in (".", "") and not os.path.isabs(b):
+        roots.add(os.path.normpath(b))
+    roots.discard(os.sep)
+
+    def show(m):
+        s = m.group(0)
+        kept = s.rstrip(_TRAIL)
+        return display_path(kept, b) + s[len(kept):]
+
+    for root in sorted(roots, key=len, reverse=True):
+        pat = r"(?<![\w.~+\-/…])" + re.escape(root + os.sep) + r"[^\s'\"<>]*"
+        text = re.sub(pat, show, text)
+    return _ABSOLUTE.sub(show, text)

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import html
 import math
+from pathlib import Path
 
 __all__ = ["family_report", "case_report"]
 
@@ -31,47 +32,38 @@ _TABLE_KEYS = ("name", "charge", "motif", "cation", "anion", "vacancy", "variant
                "status", "error")
 
 
-def _fmt(v):
+def _fmt(v, base=None):
     if v is None:
         return ""
     if isinstance(v, float):
         if not math.isfinite(v):
             return ""
         return f"{v:.3g}" if abs(v) >= 1e3 or (abs(v) < 1e-2 and v != 0) else f"{v:.3f}"
-    return html.escape(str(v))
+    return _text(v, base)
 
 
-def _display_path(path) -> str:
-    """A path as the user would type it: relative to the working folder when
-    inside it, otherwise just its last two parts (reports travel; machine paths
-    should not)."""
-    if not path:
-        return ""
+def _base(fam):
+    """Folder the report's file paths are shown relative to: the manifest's (else the working folder)."""
     from pathlib import Path
-    p = Path(path)
-    try:
-        return str(p.resolve().relative_to(Path.cwd().resolve()))
-    except ValueError:
-        return str(Path(*p.parts[-2:]))
+    src = getattr(fam, "source", None)
+    return Path(src).parent if src else None
 
 
-def _relative_paths(text: str) -> str:
-    """Paths under the working folder shown relative to it (reports travel; machine paths should not)."""
-    import os
-    from pathlib import Path
-    for root in {str(Path.cwd()), str(Path.cwd().resolve())}:
-        text = text.replace(root + os.sep, "")
-    return text
+def _text(value, base) -> str:
+    """A text slot of a report: file paths relative to ``base`` (reports travel; machine paths
+    should not), then HTML-escaped."""
+    from .outputs import display_paths
+    return html.escape(display_paths(str(value), base))
 
 
-def _table(rows):
+def _table(rows, base=None):
     keys = [k for k in _TABLE_KEYS if any(k in r for r in rows)]
     head = "".join(f"<th>{html.escape(k.replace('_', ' '))}</th>" for k in keys)
-    body = "".join("<tr>" + "".join(f"<td>{_fmt(r.get(k))}</td>" for k in keys) + "</tr>" for r in rows)
+    body = "".join("<tr>" + "".join(f"<td>{_fmt(r.get(k), base)}</td>" for k in keys) + "</tr>" for r in rows)
     return f"<div style='overflow-x:auto'><table class='t'><tr>{head}</tr>{body}</table></div>"
 
 
-def _bokeh_parts(fam, res, fit, rep):
+def _bokeh_parts(fam, res, fit, rep, case=None):
     """(script, divs) of the interactive figures, or ('', {}) if bokeh cannot build them."""
     from bokeh.embed import components
 
@@ -79,9 +71,10 @@ def _bokeh_parts(fam, res, fit, rep):
     figs = {}
     rows = res.table()
     cols = views.family_columns(rows)
-    x = "pair_distance_mean" if "pair_distance_mean" in cols else views.family.numeric_keys(cols)[0]
-    board = views.family_board(cols, x=x, y="above_vbm")
-    figs["board"] = board[0] if isinstance(board, tuple) else board
+    xs = ["pair_distance_mean"] if "pair_distance_mean" in cols else views.family.numeric_keys(cols)
+    if xs and "above_vbm" in cols:  # a board of levels needs a case with a level (and a descriptor)
+        board = views.family_board(cols, x=xs[0], y="above_vbm")
+        figs["board"] = board[0] if isinstance(board, tuple) else board
     story = res.story(rep.name) if rep is not None else None
     if story is not None and story.model is not None:
         m = story.model
@@ -90,8 +83,7 @@ def _bokeh_parts(fam, res, fit, rep):
         cbm = pred.cbm if math.isfinite(pred.cbm) else pred.level + 1
         figs["levels"] = views.level_diagram(data, y_range=(-2.0, cbm + 1.5),
                                              title=f"{rep.name}: fitted levels")
-    if rep is not None:
-        case = fam[rep.name]
+    if rep is not None and case is not None:
         if case.defect_pdos is not None and rep.site is not None:
             from .analysis import align
             picks = views.channel_choices(case.defect_pdos, rep.site)
@@ -105,26 +97,39 @@ def _bokeh_parts(fam, res, fit, rep):
             st = views.states_data(rep.states, vbm_shift=vbm, ymax=0.9 * ymax)
             figs["pdos"] = views.pdos_figure(lines, st, gap=edges.gap if edges is not None else None,
                                              title=f"{rep.name}: PDOS, host (dashed) vs defect (solid)")
+    if not figs:
+        return "", {}
     script, divs = components(figs)
     return script, divs
 
 
-def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str:
-    """The HTML text of a family report (inline bokeh; no network needed)."""
+def family_report(fam, res, fit=None, trends=None, *, demo: bool = False, full=None) -> str:
+    """The HTML text of a family report (inline bokeh; no network needed).
+
+    ``full`` is the representative case with its arrays (for the PDOS figure); by default it is
+    re-read with :func:`orbtool.batch.full_case` (a family from the worker route holds summaries).
+    File paths are shown relative to the manifest's folder, never as the machine's absolute path."""
     from bokeh.resources import INLINE
 
     from .story import MODEL_CAUTION, representative, toxic_caution
     rep = representative(res, fit)
+    base = _base(fam)
+    if rep is not None and full is None:
+        full = _full(fam, rep.name, res)
     parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>orbtool report: "
              f"{html.escape(fam.name)}</title><style>{_CSS}</style>{INLINE.render()}"]
     try:
-        script, divs = _bokeh_parts(fam, res, fit, rep)
+        script, divs = _bokeh_parts(fam, res, fit, rep, full)
     except Exception as exc:  # a figure must never cost the user the report
         script, divs = "", {}
         res.notes.append(f"interactive figures skipped: {type(exc).__name__}: {exc}")
     parts.append(script + "</head><body>")
     parts.append(f"<h1>orbtool report — {html.escape(fam.name)}</h1>")
-    parts.append(f"<p>{len(fam)} cases; manifest <code>{html.escape(_display_path(fam.source))}</code>.</p>")
+    n_bad = len(res.errors)
+    parts.append(f"<p>{len(res.results)} cases" + (f" ({n_bad} not analysed: see <i>Problems and notes</i>)"
+                                                   if n_bad else "")
+                 + f"; manifest <code>{_text(Path(fam.source).name if fam.source else '', None)}</code>; file "
+                 "paths are shown relative to the manifest's folder.</p>")
     if demo:
         parts.append("<div class='note'><b>Demo data.</b> This family is <b>model data</b> computed with orbtool's own "
                      "supercell tight-binding generator for <b>invented compounds</b>; it demonstrates the workflow "
@@ -133,16 +138,18 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str
     tox = toxic_caution(res.toxic_elements())
     if tox:
         parts.append(f"<div class='caution'><b>Toxic elements.</b> {html.escape(tox)}</div>")
-    parts.append("<h2>Family table</h2>" + _table(res.table()))
+    parts.append("<h2>Family table</h2>" + _table(res.table(), base))
     if "board" in divs:
         parts.append("<h2>Level depth across the family</h2>" + divs["board"])
+    elif not any(r.ok and r.state is not None for r in res.results):
+        parts.append("<p>No case has an in-gap defect state, so there is no level board.</p>")
     if trends and trends.get("correlation"):
         top = sorted(trends["correlation"].items(), key=lambda kv: -abs(kv[1]))[:6]
         parts.append("<p>Strongest correlations of the level (eV above VBM) with descriptors (Pearson r, "
                      f"n = {trends['n']}): " + ", ".join(f"{html.escape(k)} {v:+.2f}" for k, v in top) + ".</p>")
     if rep is not None:
         parts.append("<h2>Defect state and model of the representative case</h2><pre class='story'>"
-                     + html.escape(res.story(rep.name).summary()) + "</pre>")
+                     + _text(res.story(rep.name).summary(), base) + "</pre>")
     if fit is not None:
         parts.append("<h2>Shared tight-binding fit</h2><pre>" + html.escape(fit.summary()) + "</pre>")
         explained = fit.explain(case=rep.name if rep is not None and rep.name in res.fit_cases else None)
@@ -154,24 +161,28 @@ def family_report(fam, res, fit=None, trends=None, *, demo: bool = False) -> str
     if res.levels:
         parts.append("<h2>Kohn–Sham state, transition levels and SRH factor</h2>")
         for dl in res.levels.values():
-            parts.append("<pre>" + html.escape(dl.summary()) + "</pre>")
-    parts.append(_conventions_section(fam, res))
+            parts.append("<pre>" + _text(dl.summary(), base) + "</pre>")
+    parts.append(_conventions_section(fam, res, base))
     if res.errors or res.notes:
         parts.append("<h2>Problems and notes</h2><ul>" +
-                     "".join(f"<li>{html.escape(k)}: {html.escape(v)}</li>" for k, v in res.errors.items()) +
-                     "".join(f"<li>{html.escape(n)}</li>" for n in res.notes) + "</ul>")
+                     "".join(f"<li>{html.escape(k)}: {_text(v, base)}</li>" for k, v in res.errors.items()) +
+                     "".join(f"<li>{_text(n, base)}</li>" for n in res.notes) + "</ul>")
     parts.append("<p style='font-size:.8em;color:#8a8a80'>Written by orbtool. Figures for print are in "
                  "<code>figures/</code> beside this file.</p></body></html>")
     return "\n".join(parts)
 
 
-def case_report(fam, res, name: str, fit=None, *, demo: bool = False) -> str:
-    """The HTML text of a one-case report (inline bokeh; no network needed)."""
+def case_report(fam, res, name: str, fit=None, *, demo: bool = False, full=None) -> str:
+    """The HTML text of a one-case report (inline bokeh; no network needed).
+
+    ``full`` is the case with its arrays (by default re-read with :func:`orbtool.batch.full_case`).
+    File paths are shown relative to the manifest's folder, never as the machine's absolute path."""
     from bokeh.embed import components
     from bokeh.resources import INLINE
 
     from .story import MODEL_CAUTION, toxic_caution
     r = res[name]
+    base = _base(fam)
     parts = [f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>orbtool report: "
              f"{html.escape(name)}</title><style>{_CSS}</style>{INLINE.render()}"]
     divs = {}
@@ -198,27 +209,29 @@ def case_report(fam, res, name: str, fit=None, *, demo: bool = False) -> str:
         parts.append("<div class='note'><b>Demo data.</b> Model data for an invented compound (orbtool's own "
                      "tight-binding generator); it demonstrates the workflow only.</div>")
     parts.append(f"<div class='caution'><b>Caution.</b> {html.escape(MODEL_CAUTION)}</div>")
-    case = fam[name]
-    tox = toxic_caution([e for e in sorted(set(case.defect.get_chemical_symbols()))
-                         if e in __import__("orbtool.family", fromlist=["TOXIC_ELEMENTS"]).TOXIC_ELEMENTS])
+    case = full if full is not None else _full(fam, name, r)
+    from .family import TOXIC_ELEMENTS
+    present = set(case.defect.get_chemical_symbols()) if case is not None else set(map(str, r.labels.values()))
+    tox = toxic_caution([e for e in sorted(present) if e in TOXIC_ELEMENTS])
     if tox:
         parts.append(f"<div class='caution'><b>Toxic elements.</b> {html.escape(tox)}</div>")
-    parts.append("<h2>Result</h2><pre>" + html.escape(r.summary()) + "</pre>")
+    parts.append("<h2>Result</h2><pre>" + _text(r.summary(), base) + "</pre>")
     if r.ok:
-        parts.append("<h2>Defect state and model</h2><pre class='story'>" + html.escape(res.story(name).summary())
+        parts.append("<h2>Defect state and model</h2><pre class='story'>" + _text(res.story(name).summary(), base)
                      + "</pre>")
     if r.site is not None:
         parts.append("<h2>Vacancy and neighbour shells</h2><pre>" + html.escape(r.site.summary()) + "</pre>")
     for k, st in enumerate(r.states):
-        parts.append(f"<h2>In-gap state {k + 1}</h2><pre>" + html.escape(st.summary()) + "</pre>")
+        parts.append(f"<h2>In-gap state {k + 1}</h2><pre>" + _text(st.summary(), base) + "</pre>")
     if "levels" in divs:
         parts.append("<h2>Fitted cluster levels</h2>" + divs["levels"])
     key = r.labels.get("defect") or name
     if key in res.levels:
-        parts.append("<h2>Levels and SRH factor</h2><pre>" + html.escape(res.levels[key].summary()) + "</pre>")
-    parts.append("<h2>What was read</h2><pre>" + html.escape(case.summary()) + "</pre>")
+        parts.append("<h2>Levels and SRH factor</h2><pre>" + _text(res.levels[key].summary(), base) + "</pre>")
+    if case is not None:
+        parts.append("<h2>What was read</h2><pre>" + _text(case.summary(), base) + "</pre>")
     parts.append("</body></html>")
-    return _relative_paths("\n".join(parts))
+    return "\n".join(parts)
 
 
 # ---------------------------------------------------------------- how the numbers were referred (owndata)
@@ -287,7 +300,7 @@ def data_conventions(case, analysis=None) -> dict:
     return out
 
 
-def _conventions_section(fam, res) -> str:
+def _conventions_section(fam, res, base=None) -> str:
     """HTML: per case, the alignment routes, band edges and unit conventions (:func:`data_conventions`)."""
     blocks = []
     for r in res.results:
@@ -297,6 +310,20 @@ def _conventions_section(fam, res) -> str:
             d = {"alignment": [f"not reported: {type(exc).__name__}: {exc}"], "edges": [], "units": [], "warnings": []}
         text = ["alignment:", *("  " + x for x in d["alignment"]), "band edges:", *("  " + x for x in d["edges"]),
                 "units:", *("  " + x for x in d["units"])] + [f"WARNING: {w}" for w in d["warnings"]]
-        blocks.append(f"<h3>{html.escape(r.name)}</h3><pre>" + html.escape(_relative_paths("\n".join(text)))
+        blocks.append(f"<h3>{html.escape(r.name)}</h3><pre>" + _text("\n".join(text), base)
                       + "</pre>")
     return ("<h2>Alignment, band edges and units per case</h2>" + "".join(blocks)) if blocks else ""
+
+
+def _full(fam, name, notes_of):
+    """Case ``name`` with its arrays (re-read when the family holds summaries), or None with a note
+    on ``notes_of`` (a FamilyAnalysis or CaseAnalysis) if it cannot be read (any more)."""
+    from .batch import full_case
+    from .errors import OrbtoolError
+    try:
+        return full_case(fam, name)
+    except KeyError:  # not among the cases that could be read: its row says why
+        return None
+    except OrbtoolError as exc:
+        notes_of.notes.append(f"{name}: could not be re-read for the report ({exc})")
+        return None

@@ -141,7 +141,7 @@ KEYS = ["name", "path", "host", "charge", "labels", "description", "motif", "def
         "references", "case", "host", "unknown_key"]
 
 
-@settings(max_examples=4 * EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
+@settings(max_examples=4 * EXAMPLES, deadline=None, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(key=st.sampled_from(KEYS), value=values, where=st.sampled_from(_SPOTS), replace=st.booleans())
 def test_fuzz_wrong_types(key, value, where, replace):
@@ -156,14 +156,14 @@ def test_fuzz_wrong_types(key, value, where, replace):
     _expect_orbtool_error("\n".join(lines) + "\n")
 
 
-@settings(max_examples=2 * EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
+@settings(max_examples=2 * EXAMPLES, deadline=None, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(ops=mutations)
 def test_fuzz_damaged_text(ops):
     _expect_orbtool_error(mutate(VALID.encode(), ops))
 
 
-@settings(max_examples=EXAMPLES // 2, deadline=3000, derandomize=DERANDOMIZE, database=None,
+@settings(max_examples=EXAMPLES // 2, deadline=None, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(depth=st.integers(1, 5000), brace=st.booleans(), top=st.sampled_from(["", "[references]\n", "[[case]]\n"]))
 def test_fuzz_deep_nesting(depth, brace, top):

@@ -163,13 +163,15 @@ def test_second_run_into_the_same_folder_fails_clearly(tmp_path):
 
 @posix
 def test_cli_second_analyze_fails(tmp_path, capsys):
-    """Through the command line: `orbtool analyze` into a folder another run holds exits 1."""
+    """Through the command line: `orbtool analyze` into a folder another run holds exits 1 (the
+    manifest, valid, is checked first; the lock is met before any case is read)."""
+    from orbtool.pipeline import demo_manifest
     out = tmp_path / "out"
     child = _spawn(f"from orbtool.outputs import OutputFolder; import time; f = OutputFolder({str(out)!r}); "
                    "print('ready', flush=True); time.sleep(120)")
     try:
         from orbtool.cli import main
-        assert main(["analyze", str(tmp_path / "missing.toml"), "--out", str(out), "--quiet"]) == 1
+        assert main(["analyze", str(demo_manifest()), "--out", str(out), "--quiet"]) == 1
         assert "another orbtool run" in capsys.readouterr().err
     finally:
         _kill(child)

@@ -274,7 +274,7 @@ def test_valid_source_reads(kind):
 
 
 @pytest.mark.parametrize("kind", sorted(SOURCES))
-@settings(max_examples=EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
+@settings(max_examples=EXAMPLES, deadline=None, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(ops=mutations)
 def test_fuzz_reader_raises_only_orbtool_errors(kind, ops):
@@ -290,7 +290,7 @@ def test_fuzz_reader_raises_only_orbtool_errors(kind, ops):
 
 @pytest.mark.parametrize("kind", ["cube", "xsf", "chgcar", "doscar", "procar", "orbtool-projections", "npz",
                                   "cp2k-pdos", "poscar", "session"])
-@settings(max_examples=EXAMPLES // 2, deadline=3000, derandomize=DERANDOMIZE, database=None,
+@settings(max_examples=EXAMPLES // 2, deadline=None, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(which=st.integers(0, 40), huge=st.sampled_from(HUGE))
 def test_fuzz_huge_declared_size(kind, which, huge):
@@ -350,7 +350,7 @@ _RUN = {"POSCAR": FIX / "vasp_spin" / "POSCAR", "DOSCAR": FIX / "vasp_spin" / "D
         "PROCAR": FIX / "vasp_spin" / "PROCAR", "OSZICAR": FIX / "vasp_spin" / "OSZICAR"}
 
 
-@settings(max_examples=EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
+@settings(max_examples=EXAMPLES, deadline=None, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(which=st.sampled_from(sorted(_RUN)), ops=mutations)
 def test_fuzz_load_case(which, ops):
@@ -383,7 +383,7 @@ _MEMBERS = {"session": ["session.json", "arrays/0.npy", "arrays/3.npy"],
 
 
 @pytest.mark.parametrize("kind", sorted(_MEMBERS))
-@settings(max_examples=EXAMPLES, deadline=3000, derandomize=DERANDOMIZE, database=None,
+@settings(max_examples=EXAMPLES, deadline=None, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(ops=mutations, which=st.integers(0, 3))
 @example(ops=[("hostile", 0.5, 0)], which=0).via("regression: 'nan' in a .npy header raised tokenize.TokenError")
@@ -431,7 +431,7 @@ def _si64():
     return _SI64
 
 
-@settings(max_examples=EXAMPLES // 2, deadline=5000, derandomize=DERANDOMIZE, database=None,
+@settings(max_examples=EXAMPLES // 2, deadline=None, derandomize=DERANDOMIZE, database=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(ops=mutations)
 def test_fuzz_structure_into_locate_vacancy(ops):

@@ -236,7 +236,7 @@ def _mutate(data: bytes, ops) -> bytes:
 
 
 @pytest.mark.parametrize("kind", sorted(SOURCES))
-@settings(max_examples=40, deadline=5000, derandomize=True,
+@settings(max_examples=40, deadline=None, derandomize=True,
           suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(ops=mutation)
 def test_fuzz_only_input_format_errors(kind, ops):

@@ -94,7 +94,7 @@ def _kind_of(path, quantity):
     return "density", "charge-density layout (values are ρ·V)"
 
 
-def read_chgcar(path, quantity: str = "auto", progress: bool = True) -> list[Grid]:
+def read_chgcar(path, quantity: str = "auto", progress: bool = True, max_bytes: int | None = None) -> list[Grid]:
     """Read every grid block of a CHGCAR-family file.
 
     Parameters
@@ -104,6 +104,9 @@ def read_chgcar(path, quantity: str = "auto", progress: bool = True) -> list[Gri
         ``"density"`` divides by the cell volume (e/Å³); ``"potential"`` keeps eV; ``"raw"``
         keeps the stored numbers. ``"auto"`` chooses from the file name (LOCPOT → potential).
     progress : show a progress bar on slow reads
+    max_bytes : int, optional
+        Memory budget in bytes for the declared grid counts (default ``$ORBTOOL_MAX_BYTES`` or
+        1 GiB), checked before any value is read or decompressed.
 
     Returns
     -------
@@ -134,7 +137,7 @@ def read_chgcar(path, quantity: str = "auto", progress: bool = True) -> list[Gri
             reader = hr.values(bar)
             notes = []
             while True:
-                check_memory(path, (len(grids) + 1) * total * 8, "grid", hr.line)
+                check_memory(path, (len(grids) + 1) * total * 8, "grid", hr.line, max_bytes=max_bytes)
                 out = np.empty(dims, order="F")  # the file's order: first index fastest
                 reader.fill(out.reshape(-1, order="F"), f"grid block {len(grids) + 1}")
                 grids.append(out)

@@ -49,11 +49,13 @@ def _atom_line(line, hr):
     return num, [to_float(x, hr.path, hr.line, "atom position") for x in t[1:4]]
 
 
-def read_xsf(path, quantity: str = "auto", progress: bool = True) -> list[Grid]:
+def read_xsf(path, quantity: str = "auto", progress: bool = True, max_bytes: int | None = None) -> list[Grid]:
     """Read every ``DATAGRID_3D`` of an XSF file (values kept as written).
 
     ``quantity`` only labels the unit (``"density"`` → e/Å³, ``"orbital"`` → Å^-3/2,
-    ``"potential"`` → eV, ``"raw"``/``"auto"`` → ``"arb"``): XSF carries no unit.
+    ``"potential"`` → eV, ``"raw"``/``"auto"`` → ``"arb"``): XSF carries no unit. ``max_bytes`` is the
+    memory budget for the declared grid counts (default ``$ORBTOOL_MAX_BYTES`` or 1 GiB), checked
+    before any value is read.
     """
     unit = {"density": "e/Å^3", "orbital": "Å^-3/2", "potential": "eV"}.get(quantity, "arb")
     comp = compression_of(path) is not None
@@ -124,7 +126,7 @@ def read_xsf(path, quantity: str = "auto", progress: bool = True) -> list[Grid]:
                 span = np.array([_vec(hr.next(f"spanning vector {i + 1}"), hr, "spanning vector") for i in range(3)])
                 total = counts[0] * counts[1] * counts[2]
                 check_declared_size(path, total, "grid", hr.line, comp)
-                check_memory(path, total * 8, "grid", hr.line)
+                check_memory(path, total * 8, "grid", hr.line, max_bytes=max_bytes)
                 full = np.empty(counts, order="F")
                 reader = hr.values(bar)
                 reader.fill(full.reshape(-1, order="F"), f"grid {name}")
