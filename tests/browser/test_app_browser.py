@@ -160,6 +160,7 @@ def test_quick_start_notebook_in_jupyterlab(chromium, tmp_path, shots):
                                " return e && e.innerText !== b; }", arg=[before], timeout=15_000)
         page.wait_for_timeout(800)
         _all_tabs(app, page, shots, "quick")
+        _tab(app, page, "Level explorer", 1500)  # the whole-app picture shows the explorer after the keys
         app.screenshot(path=str(shots / "app.png"))
 
     _run(chromium, tmp_path, shots, NOTEBOOK.name, check)
