@@ -214,9 +214,9 @@ def _app_check(chromium, tmp_path, shots, further):
         # (nglview's _ngl_repr_dict, sent by the front end) is the slider's value, the one saved
         _tab(app, page, "Structure", 2500)
         app.locator(".orbtool-session button", has_text="Restore").first.click()
-        page.locator(".orbtool-session progress, .orbtool-session .widget-progress").first.wait_for(
-            state="visible", timeout=60_000)
         page.locator(".orbtool-session .orbtool-msg", has_text="restored from").wait_for(timeout=300_000)
+        progress = "p = app.session.progress; print(p.layout.visibility, p.value, p.bar_style)"
+        assert kernel_eval(page, progress).strip() == "visible 4 success"
         in_step = wait_kernel(page, IN_STEP, "True")
         assert in_step == "True", in_step
         readout = app.locator(".orbtool-isovalue .widget-readout").first.inner_text()
