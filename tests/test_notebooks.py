@@ -1,7 +1,7 @@
 """Every tutorial notebook runs top to bottom on the demo data (nbclient, a
-fresh kernel each); a failing cell fails the test. Each notebook is also
-held to the < 30 s budget the tutorials promise (reported, with slack for a
-loaded CI machine: the hard limit is 120 s per notebook)."""
+fresh kernel each); a failing cell fails the test. The time each notebook
+takes is printed (``-s``), never asserted: it depends on the machine's load.
+The per-cell timeout is only a guard against a hung kernel."""
 
 from __future__ import annotations
 
@@ -10,6 +10,8 @@ from pathlib import Path
 
 import pytest
 
+#: a kernel that has not finished a cell after this long is hung (not slow): a guard, not a timing check
+HANG_GUARD_S = 3600
 NOTEBOOKS = sorted((Path(__file__).resolve().parents[1] / "notebooks").glob("*.ipynb"))
 
 
@@ -27,11 +29,11 @@ def test_notebook_runs(path, tmp_path):
     from nbclient import NotebookClient
 
     nb = nbformat.read(path, as_version=4)
-    client = NotebookClient(nb, timeout=120, kernel_name="python3", resources={"metadata": {"path": str(tmp_path)}})
+    client = NotebookClient(nb, timeout=HANG_GUARD_S, kernel_name="python3",
+                            resources={"metadata": {"path": str(tmp_path)}})
     t0 = time.perf_counter()
     client.execute()  # raises CellExecutionError naming the failing cell
     seconds = time.perf_counter() - t0
     errors = [o for c in nb.cells if c.cell_type == "code" for o in c.get("outputs", []) if o.output_type == "error"]
     assert not errors
-    assert seconds < 120, f"{path.name} took {seconds:.0f} s"
     print(f"{path.name}: {seconds:.1f} s")

@@ -88,6 +88,38 @@ def test_set_before_display_reaches_readout_diagram_and_the_browser_bundle(stand
     assert pane.render_bundle is once_shown
 
 
+def test_a_knob_change_is_one_document_patch_that_bokeh_applies(standin):
+    # bokeh's PATCH-DOC message holds a list of events (bokeh.protocol.messages.patch_doc); the pane sends
+    # all sources a knob changed as one such patch (3 comm messages: header, metadata, content). Checked by
+    # applying that patch with bokeh's own Document.apply_json_patch to the document the browser was given.
+    from bokeh.document import Document
+
+    from orbtool.views.levels import LEVEL_SOURCES
+    from orbtool.widgets import LevelExplorer
+
+    fit, site = standin
+    le = LevelExplorer(fit, site)
+    pane = le.widget.children[0]
+    bundle = json.loads(json.dumps(pane.render_bundle, default=str)) if isinstance(pane.render_bundle, dict) \
+        else json.loads(pane.render_bundle)
+    (doc_json,) = bundle["docs_json"].values()
+    browser_doc = Document.from_json(doc_json)
+    pane._view_count = 1  # shown in a browser
+    sent = []
+    pane.send = lambda content, buffers=None: sent.append(content)
+    le.set(coupling_scale=le.coupling.min, onsite_shift=0.1)
+    assert len(sent) == 3 and all(m["msg"] == "patch" for m in sent)
+    header, content = json.loads(sent[0]["payload"]), json.loads(sent[2]["payload"])
+    assert header["msgtype"] == "PATCH-DOC"
+    changed = {e["model"]["id"] for e in content["events"]}
+    assert len(changed) >= 2  # several sources moved, one message
+    browser_doc.apply_json_patch(content)
+    for name in LEVEL_SOURCES:
+        ours = le.figure.select_one({"name": name}).data
+        theirs = browser_doc.get_model_by_name(name).data
+        assert {k: list(v) for k, v in theirs.items()} == {k: list(v) for k, v in ours.items()}, name
+
+
 def test_knob_set_by_code_is_the_same_state_as_by_widget(standin):
     from orbtool.widgets import LevelExplorer
 
@@ -178,19 +210,50 @@ def test_element_colours_and_density_legend(si):
                                    for e in cell)
 
 
-def test_structure_state_set_before_the_browser_loads_rebuilds_the_view(si):
+def _calls(view, sent):
+    """nglview call messages of ``view``: those sent to the browser (``sent``) and those still queued."""
+    queued = [cb._ngl_msg for cb in view._callbacks_before_loaded + view._remote_call_thread.q]
+    return [m for m in sent if m.get("type") == "call_method"] + queued
+
+
+def test_structure_changes_wait_until_the_browser_has_drawn_the_view(si):
+    # nglview's front end (nglview 4.0, js/src/widget_ngl.ts handleCallMethod) looks a "Representation"
+    # call up as stage.compList[c].reprList[r]: a call for parts it has not drawn yet fails in the browser
+    # ("Cannot read properties of undefined (reading 'reprList')"). The browser reports what it has drawn in
+    # _ngl_repr_dict; changes made before that are sent once it reports, as the state they left.
     from orbtool.widgets import StructureView
 
     case, site = si
     sv = StructureView(case.defect, site, case.grids["state"])
-    first = sv.view
+    view = sv.view
+    built = list(view._ngl_msg_archive)
+    sent = []
+    view.send = lambda msg, buffers=None: sent.append(msg)
     iso = sv.isovalue.value * 2.0
     sv.set(isovalue=iso, radius=8.0, only_near=True)
-    assert sv.view is not first and sv.widget.children[0] is sv.view
-    msgs = sv.view._ngl_msg_archive
-    assert not [m for m in msgs if m.get("methodName") == "setParameters"]  # nothing addressed to unloaded parts
-    surf = [m["kwargs"] for m in msgs if m.get("methodName") == "addRepresentation" and m["args"][0] == "surface"]
-    assert surf and all(s["isolevel"] == pytest.approx(sv.isovalue.value) for s in surf)
+    assert sv.view is view and sv._pending == {"atoms", "iso"}
+    assert [m for m in _calls(view, sent) if m["methodName"] in ("setParameters", "removeAllRepresentations")] == []
+    assert view._ngl_msg_archive == built  # the archive stays the view as built (no re-sent cube data)
+    assert f"isovalue {sv.isovalue.value:.3g} " in sv.enclosed.value  # the text follows at once
+    view.loaded = True  # the browser has the widget, but not its components yet
+    sv.set(isovalue=iso * 1.1)
+    assert [m for m in sent if m.get("methodName") == "setParameters"] == []
+    view._ngl_repr_dict = {"0": {"0": {}}, "1": {"0": {}}}  # structure and one surface of two drawn
+    assert [m for m in sent if m.get("methodName") == "setParameters"] == [] and "iso" in sv._pending
+    view._ngl_repr_dict = {"0": {"0": {}, "1": {}, "2": {}}, "1": {"0": {}, "1": {}}}  # all drawn
+    assert not sv._pending
+    iso_calls = [m for m in sent if m.get("methodName") == "setParameters"]
+    assert [(m["component_index"], m["repr_index"]) for m in iso_calls] == [(1, 0), (1, 1)]
+    assert all(m["kwargs"]["isolevel"] == pytest.approx(sv.isovalue.value) for m in iso_calls)
+    adds = [m for m in sent if m.get("methodName") == "addRepresentation"]
+    near = sum(len(m["kwargs"]["sele"].lstrip("@").split(",")) for m in adds if m["kwargs"]["sele"] != "none")
+    assert f"{near} of {len(case.defect)} atoms shown" in sv.status.value and near < len(case.defect)
+    # once drawn, a change goes out at once and still leaves the archive alone
+    sent.clear()
+    sv.set(radius=4.0)
+    kinds = [m["methodName"] for m in sent if m.get("type") == "call_method"]
+    assert kinds[0] == "removeAllRepresentations" and set(kinds[1:]) == {"addRepresentation"}
+    assert view._ngl_msg_archive == built
 
 
 # -------------------------------------------------------------------------------------------- sessions

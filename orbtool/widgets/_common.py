@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import html
+import json
+import weakref
+from contextlib import contextmanager
 
 from .. import style
 
@@ -30,29 +33,58 @@ def ensure_bokeh() -> None:
 
 
 _PANE_CLASS = None
+#: bokeh model id → its pane (weakly: a pane closed or dropped is forgotten)
+_PANES: "weakref.WeakValueDictionary" = weakref.WeakValueDictionary()
 
 
 def _pane_class():
-    """``jupyter_bokeh.BokehModel`` that never loses a change made before it is shown.
+    """``jupyter_bokeh.BokehModel`` that never loses a change made before it
+    is shown and sends a batch of changes as one document patch.
 
-    The browser side of ``BokehModel`` applies document patches only in a
-    rendered view and renders a new view from the ``render_bundle`` taken
-    when the widget was created: a source changed in between (e.g.
-    ``explorer.set(...)`` before the cell displaying the app) was lost, so
-    the diagram lagged the readout. This subclass counts the browser views
-    (``_view_count``) and, while none is shown, also refreshes the
-    ``render_bundle`` after each change, so the first view renders the
-    current state. Once shown, changes go out as patches only (fast path).
+    * The browser side of ``BokehModel`` applies document patches only in a
+      rendered view and renders a new view from the ``render_bundle`` taken
+      when the widget was created: a source changed in between (e.g.
+      ``explorer.set(...)`` before the cell displaying the app) was lost, so
+      the diagram lagged the readout. This subclass counts the browser views
+      (``_view_count``) and, while none is shown, also refreshes the
+      ``render_bundle`` after each change, so the first view renders the
+      current state. Once shown, changes go out as patches only.
+    * ``BokehModel`` sends every changed property as its own document patch
+      (three comm messages each: header, metadata, content); inside
+      :func:`batched` the changes are collected and sent as one patch of
+      several events (bokeh's PATCH-DOC message holds a list of events),
+      which the browser applies and draws once.
     """
     global _PANE_CLASS
     if _PANE_CLASS is None:
+        from bokeh.protocol import Protocol
         from jupyter_bokeh import BokehModel
 
         class BokehPane(BokehModel):
+            _held = None
+
             def _document_patched(self, event):
-                super()._document_patched(event)
+                if event.setter is self:  # a change that came from the browser: nothing to send back
+                    return
+                if self._held is not None:
+                    self._held.append(event)
+                    return
+                self._send_patch([event])
+
+            def _send_patch(self, events):
+                if not events:
+                    return
                 if not self._view_count:  # nothing shown yet: the first view must start from the current state
                     self.render_bundle = self._model_to_traits(self._model)
+                    # (the patch still goes out: a view being drawn now has not been counted yet)
+                msg = Protocol().create("PATCH-DOC", events)
+                # the message layout jupyter_bokeh's browser side reads (as BokehModel._document_patched sends it)
+                self.send({"msg": "patch", "payload": msg.header_json})
+                self.send({"msg": "patch", "payload": msg.metadata_json})
+                self.send({"msg": "patch", "payload": msg.content_json})
+                for buffer in msg.buffers:
+                    self.send({"msg": "patch", "payload": json.dumps(buffer.ref)})
+                    self.send({"msg": "patch"}, [buffer.to_bytes()])
 
         _PANE_CLASS = BokehPane
     return _PANE_CLASS
@@ -60,9 +92,29 @@ def _pane_class():
 
 def bokeh_pane(model):
     """A bokeh model wrapped as an ipywidget (a ``jupyter_bokeh.BokehModel``
-    that keeps changes made before display, see :func:`_pane_class`)."""
+    that keeps changes made before display and can batch changes, see
+    :func:`_pane_class` and :func:`batched`)."""
     ensure_bokeh()
-    return _pane_class()(model, combine_events=True, _view_count=0)
+    pane = _pane_class()(model, combine_events=True, _view_count=0)
+    _PANES[model.id] = pane
+    return pane
+
+
+@contextmanager
+def batched(model):
+    """Within this block, changes to the document of ``model`` (shown by
+    :func:`bokeh_pane`) are collected and sent to the browser as one patch
+    when the block ends; without a pane it does nothing."""
+    pane = _PANES.get(getattr(model, "id", None))
+    if pane is None or pane._held is not None:
+        yield
+        return
+    pane._held = []
+    try:
+        yield
+    finally:
+        events, pane._held = pane._held, None
+        pane._send_patch(events)
 
 
 def esc(value) -> str:

@@ -227,7 +227,7 @@ class App:
     def _tab_shown(self, change):
         # nglview measures its canvas when shown; a view built in a hidden tab needs a resize to draw
         if change["new"] == _TABS.index("Structure") and self.structure is not None:
-            attempt(self.structure.view.handle_resize)
+            attempt(self.structure.resize)
 
     # ----------------------------------------------------------------- tabs
     def _state_grid(self, case):

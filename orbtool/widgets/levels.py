@@ -18,7 +18,7 @@ import numpy as np
 
 from ..errors import ModelError
 from ..views.levels import level_diagram, level_diagram_data, update_level_diagram
-from ._common import attempt, bokeh_pane, esc, message_html
+from ._common import attempt, batched, bokeh_pane, esc, message_html
 
 __all__ = ["LevelExplorer", "Knobs", "knob_ranges", "srh_factor", "odd_mode_note", "toxic_swap_note"]
 
@@ -370,7 +370,8 @@ class LevelExplorer:
         self.prediction = pred
         data = level_diagram_data(pred, self._dangling_energy(swap, k.onsite_shift), window=self.window,
                                   coupling_scale=k.coupling_scale)
-        update_level_diagram(self.figure, data)
+        with batched(self.figure):  # one document patch for every source that changed
+            update_level_diagram(self.figure, data)
         self._show(pred)
         notes = getattr(self, "_clamp_notes", [])
         self._clamp_notes = []

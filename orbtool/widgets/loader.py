@@ -120,6 +120,10 @@ class Loader:
     def load(self, path, host=None, *, name: str | None = None):
         """Read ``path`` (with the optional ``host``); returns the object or
         None (message shown, previous state kept)."""
+        if not str(path or "").strip():  # an empty box would read the kernel's working folder
+            self.status.value = message_html("give a path first (a defect run folder, a family .toml or one file)",
+                                             "error")
+            return None
         self.progress.value = 1
         self.progress.bar_style = "info"
         shown = name or Path(str(path)).name

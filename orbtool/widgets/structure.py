@@ -126,6 +126,8 @@ class StructureView:
         controls = [self.colour_by, self.only_near, self.radius]
         self.isovalue = None
         self._cube = None
+        self._pending: set = set()  # changes waiting until the browser has drawn the view
+        self._n_surfaces = 0
         if grid is not None:
             self.fraction = EnclosedFraction(grid)
             self._tmp = tempfile.mkdtemp(prefix="orbtool-view-")
@@ -146,19 +148,18 @@ class StructureView:
             c.observe(self._draw_atoms, names="value")
         controls += [self.status, self.legend]
         self.view = self._build_view()
+        self.view.observe(self._flush, names="_ngl_repr_dict")
         self.widget = w.HBox([self.view, w.VBox(controls, layout=w.Layout(width="460px", min_width="460px"))],
                              layout=w.Layout(flex_flow="row wrap"))
         self.widget.add_class("orbtool-structure")
 
     # --------------------------------------------------------------- state
     def _build_view(self):
-        """A new nglview widget drawn from the current control values.
+        """The nglview widget, drawn from the current control values.
 
-        Used at construction and whenever a control changes before the view
-        has loaded in the browser (e.g. a session restored into a fresh app):
-        nglview cannot address a component the browser has not loaded yet
-        (its "reprList" error), so the view is rebuilt from the state instead
-        of patched."""
+        Later control changes reach the browser through :meth:`_send` only
+        once the browser has reported the components drawn (see
+        :meth:`_browser_has`); until then they wait in ``_pending``."""
         import nglview as nv
 
         view = nv.NGLWidget()
@@ -188,15 +189,57 @@ class StructureView:
         view.center()
         return view
 
-    def _rebuild_if_not_loaded(self) -> bool:
-        """Rebuild the nglview widget when the browser has not loaded it yet;
-        True when rebuilt (nothing else to send)."""
-        if getattr(self.view, "loaded", False) or not hasattr(self, "widget"):
+    # ------------------------------------------------------- browser sync
+    def _browser_has(self, component: int, representations: int = 0) -> bool:
+        """True when the browser's view has drawn ``component`` with at least
+        ``representations`` representations.
+
+        nglview's front end reports what it has drawn (``_ngl_repr_dict``,
+        sent after every added or removed representation). A message
+        addressed to a component or representation it has not drawn yet
+        fails there ("Cannot read properties of undefined (reading
+        'reprList')"): a view that has just been created (a restored session,
+        a new case) has ``loaded`` set before its first components arrive.
+        """
+        v = self.view
+        drawn = getattr(v, "_ngl_repr_dict", None) or {}
+        if not getattr(v, "loaded", False) or str(component) not in drawn:
             return False
-        # the old widget is only dropped, not closed: the browser may be half-way through drawing it, and
-        # closing its model under it makes nglview's front end address a component that is gone ("reprList")
-        self.widget.children = (self._build_view(),) + tuple(self.widget.children[1:])
-        return True
+        return len(drawn[str(component)] or {}) >= representations
+
+    def _send(self, method, target, args=None, **kwargs):
+        """One nglview call to the browser (only once :meth:`_browser_has` says
+        its target is drawn).
+
+        Not added to the widget's message archive: the archive holds the view
+        as built, and nglview (4.0, pinned) re-sends the whole archive, cube
+        data included, each time it grows (~0.2 MB per call for the demo);
+        a view the browser draws again takes its representations from
+        ``_ngl_repr_dict``, which the browser keeps current. Sent at once
+        rather than through nglview's call thread, which polls its queue
+        every 0.1 s (unless that queue still holds calls: order is kept).
+        """
+        v = self.view
+        queue = getattr(getattr(v, "_remote_call_thread", None), "q", None)
+        if queue is None or queue or not hasattr(v, "_get_remote_call_msg"):
+            v._remote_call(method, target=target, args=args or [], kwargs=kwargs, fire_once=True)
+            return
+        v.send(v._get_remote_call_msg(method, target=target, args=args or [], kwargs=kwargs))
+
+    def resize(self):
+        """Have the browser's view measure its canvas again (a view drawn in a
+        hidden tab has no size until then); nothing to do before it is loaded."""
+        if getattr(self.view, "loaded", False):
+            self._send("handleResize", "Widget")
+
+    def _flush(self, change=None):
+        """Send the changes that waited for the browser (called when it reports what it has drawn)."""
+        if "atoms" in self._pending and self._browser_has(0):
+            self._pending.discard("atoms")
+            self._draw_atoms({"new": None})
+        if "iso" in self._pending and self._browser_has(1, self._n_surfaces):
+            self._pending.discard("iso")
+            self._send_isovalue(float(self.isovalue.value))
 
     def set(self, *, isovalue=None, only_near=None, radius=None, colour_by=None):
         """Set the controls by code (before or after display); the 3-D view follows."""
@@ -223,11 +266,13 @@ class StructureView:
         return [int(i) for i in np.flatnonzero(d[:, 0] <= self.radius.value)]
 
     def _draw_atoms(self, change=None):
-        if change is not None and self._rebuild_if_not_loaded():
-            return
-        v = self.view
-        if change is not None:
-            v.clear_representations(component=0)
+        """Atoms as ball+stick by shell and colour; ``change`` None: the first
+        drawing (part of the built view), else a redraw sent to the browser
+        (or kept pending until the browser has drawn the view)."""
+        live = change is not None
+        send = live and self._browser_has(0)
+        if live:  # not drawn in the browser yet: redrawn from the state once it is (see _flush)
+            (self._pending.discard if send else self._pending.add)("atoms")
         keep = self._near() if (self.only_near.value and self.site is not None) else list(range(len(self.atoms)))
         s1, s2 = set(self._shell(1)), set(self._shell(2))
         symbols = self.atoms.get_chemical_symbols()
@@ -242,11 +287,18 @@ class StructureView:
             shell = 1 if i in s1 else 2 if i in s2 else "rest"
             colour = style.shell_colour(shell) if by_shell else style.element_colour(symbols[i])
             groups.setdefault((shell, colour), []).append(i)
-        for (shell, colour), ix in groups.items():
-            v.add_representation("ball+stick", selection=sel(sorted(ix)), color=colour, radius=radius[shell],
-                                 component=0)
+        # the text first: it reaches the browser before the 3-D redraw
         self.status.value = message_html(f"{len(keep)} of {len(self.atoms)} atoms shown", "info")
         self._show_legend(sorted({symbols[i] for i in keep}))
+        if send:
+            self._send("removeAllRepresentations", "compList", component_index=0)
+        for (shell, colour), ix in groups.items():
+            if send:
+                self._send("addRepresentation", "compList", ["ball+stick"], sele=sel(sorted(ix)), color=colour,
+                           radius=radius[shell], component_index=0)
+            elif not live:
+                self.view.add_representation("ball+stick", selection=sel(sorted(ix)), color=colour,
+                                             radius=radius[shell], component=0)
 
     def _show_legend(self, elements):
         sw = '<span style="color:{c};font-size:15px">●</span> {t}'
@@ -288,21 +340,27 @@ class StructureView:
         v = self.view
         v.add_representation("surface", component=1, isolevelType="value", isolevel=float(iso),
                              color=style.LOBE_POSITIVE, opacity=0.45)
+        self._n_surfaces = 1
         if self.fraction.signed:
             v.add_representation("surface", component=1, isolevelType="value", isolevel=float(iso),
                                  negateIsolevel=True, color=style.LOBE_NEGATIVE, opacity=0.45)
+            self._n_surfaces = 2
+
+    def _send_isovalue(self, iso):
+        for k in range(self._n_surfaces):
+            self._send("setParameters", "Representation", component_index=1, repr_index=k, isolevel=float(iso))
 
     def _on_iso(self, change):
         iso = float(change["new"])
         old = float(change["old"])
+        self._show_fraction(iso)
         if old > 0 and abs(np.log10(iso / old)) < 0.005:  # a rounding echo from the browser, not a move
             return
-        if self._rebuild_if_not_loaded():
-            return
-        self.view.update_representation(component=1, repr_index=0, isolevel=iso)
-        if self.fraction.signed:
-            self.view.update_representation(component=1, repr_index=1, isolevel=iso)
-        self._show_fraction(iso)
+        if self._browser_has(1, self._n_surfaces):
+            self._pending.discard("iso")
+            self._send_isovalue(iso)
+        else:  # sent once the browser reports the surfaces drawn (see _flush)
+            self._pending.add("iso")
 
     def _show_fraction(self, iso):
         self.enclosed.value = (f'<div class="orbtool-enclosed" style="white-space:normal">isovalue '

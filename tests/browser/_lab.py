@@ -95,6 +95,39 @@ def open_notebook(page, port, token, name, timeout_ms=600_000):
     page.locator(".jp-OutputArea-output pre", has_text=SENTINEL).wait_for(timeout=timeout_ms)
 
 
+#: JavaScript: run Python code in the open notebook's kernel (not shown in the notebook); resolves with its
+#: printed output (the browser's own connection to the kernel, as the notebook's cells use it)
+KERNEL_EVAL_JS = """async (code) => {
+  const w = window.jupyterapp.shell.currentWidget;
+  const k = w.sessionContext.session.kernel;
+  const f = k.requestExecute({code, silent: false, store_history: false});
+  let out = "";
+  f.onIOPub = (msg) => {
+    if (msg.header.msg_type === "stream") out += msg.content.text;
+    if (msg.header.msg_type === "error") out += "ERROR " + msg.content.ename + ": " + msg.content.evalue;
+  };
+  await f.done;
+  return out;
+}"""
+
+
+def kernel_eval(page, code: str) -> str:
+    """Printed output of ``code`` run in the notebook's kernel from the page."""
+    return page.evaluate(KERNEL_EVAL_JS, code)
+
+
+def wait_kernel(page, code: str, expect: str, timeout_s: float = 300.0, every_ms: int = 1000) -> str:
+    """Run ``code`` in the kernel until its output (stripped) is ``expect``; returns the last output."""
+    t0 = time.time()
+    out = ""
+    while time.time() - t0 < timeout_s:
+        out = kernel_eval(page, code).strip()
+        if out == expect:
+            return out
+        page.wait_for_timeout(every_ms)
+    return out
+
+
 #: JavaScript: the text column of every bokeh data source named ``name`` in the page (all documents)
 SOURCE_TEXT_JS = """(name) => {
   const out = [];

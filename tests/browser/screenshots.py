@@ -3,8 +3,11 @@
     python tests/browser/screenshots.py
 
 runs the browser tests with their screenshots in a temporary folder, then copies
-the whole-app picture to ``sample_outputs/app_screenshot.png`` and one picture of
-every tab (after the knobs were moved by keys) to ``docs/screenshots/``.
+the whole-app picture to ``sample_outputs/app_screenshot.png`` and the picture of
+every tab after each step of the app check (1 loaded with a knob set by code,
+2 after keys moved a slider, 3 after Restore on the Structure tab, 4 after a
+single cube was loaded by path) to ``docs/screenshots/app_<step>_<tab>.png``;
+pictures of an earlier layout there are removed first.
 """
 
 from __future__ import annotations
@@ -18,10 +21,9 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
 PICKED = {"app.png": "sample_outputs/app_screenshot.png"}
-PICKED.update({f"2_keys_{t}.png": f"docs/screenshots/app_{t}.png"
-               for t in ("load", "structure", "pdos", "level_explorer", "family")})
-PICKED.update({"4_single_cube_structure.png": "docs/screenshots/app_single_cube.png",
-               "3_restored_structure.png": "docs/screenshots/app_restored_structure.png"})
+STEPS = ("1_loaded", "2_keys", "3_restored", "4_single_cube")
+TABS = ("load", "structure", "pdos", "level_explorer", "family")
+PICKED.update({f"{s}_{t}.png": f"docs/screenshots/app_{s}_{t}.png" for s in STEPS for t in TABS})
 
 
 def main() -> int:
@@ -32,11 +34,16 @@ def main() -> int:
     if rc != 0:
         print(f"browser tests failed (exit {rc}); nothing copied. Pictures so far: {shots}")
         return rc
+    missing = [src for src in PICKED if not (shots / src).exists()]
+    if missing:
+        print(f"pictures missing: {missing}; nothing copied. Pictures so far: {shots}")
+        return 1
+    for old in (ROOT / "docs" / "screenshots").glob("app_*.png"):
+        old.unlink()
     for src, dst in PICKED.items():
-        if (shots / src).exists():
-            (ROOT / dst).parent.mkdir(parents=True, exist_ok=True)
-            shutil.copy(shots / src, ROOT / dst)
-            print(f"{dst} ← {src}")
+        (ROOT / dst).parent.mkdir(parents=True, exist_ok=True)
+        shutil.copy(shots / src, ROOT / dst)
+        print(f"{dst} ← {src}")
     return 0
 
 
