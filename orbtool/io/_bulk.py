@@ -28,19 +28,19 @@ _PARALLEL_MIN = 1 << 20  # values; smaller blocks are parsed in the calling thre
 
 
 def parse_workers() -> int:
-    """Threads used to decode a large value block: ``ORBTOOL_PARSE_THREADS`` if set (1 = serial),
-    else the CPUs this process may use, at most 4."""
+    """Threads used to decode a large value block: ``ORBTOOL_PARSE_THREADS`` if set, else 1.
+
+    Serial by default: on an idle 2-core machine 2 threads read a 180³ cube in the same wall time
+    (0.67 vs 0.70 s signed, 0.47 vs 0.46 s density) for ~45 % more CPU, because the decoder's many
+    short numpy passes per segment hold the GIL too often; the threaded path stays for measurement.
+    """
     env = os.environ.get("ORBTOOL_PARSE_THREADS", "").strip()
-    if env:
-        try:
-            return max(1, int(env))
-        except ValueError:
-            return 1
     try:
-        n = len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        n = os.cpu_count() or 1
-    return max(1, min(n, 4))
+        return max(1, int(env)) if env else 1
+    except ValueError:
+        return 1
+
+
 # byte -> 0 for whitespace, 1 otherwise (bytes.translate is much faster than a numpy lookup)
 _CLASS = bytes(0 if b in (9, 10, 11, 12, 13, 32) else 1 for b in range(256))
 
