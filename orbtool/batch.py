@@ -127,7 +127,17 @@ def _reason(exc: BaseException) -> str:
 
 
 def _run_spec(spec: CaseSpec, keep_host: bool = False):
-    """Worker task: read, analyse and reduce one case. Returns (CaseAnalysis, light case or None, stats)."""
+    """Worker task: read, analyse and reduce one case. Returns (CaseAnalysis, light case or None, stats).
+
+    The small eigenproblems of the analysis run with one BLAS thread (the workers already fill the
+    cores; see :func:`orbtool.tb.inverse.single_blas_thread`).
+    """
+    from .tb.inverse import single_blas_thread
+    with single_blas_thread():
+        return _run_spec_body(spec, keep_host)
+
+
+def _run_spec_body(spec: CaseSpec, keep_host: bool):
     from .family import CaseAnalysis, analyze_case
     t0, c0 = time.perf_counter(), time.process_time()
     light = None
@@ -144,10 +154,12 @@ def _run_spec(spec: CaseSpec, keep_host: bool = False):
 
 
 def _run_case(case):
-    """Worker task for an already loaded case."""
+    """Worker task for an already loaded case (one BLAS thread, as :func:`_run_spec`)."""
     from .family import analyze_case
+    from .tb.inverse import single_blas_thread
     t0, c0 = time.perf_counter(), time.process_time()
-    res = analyze_case(case)
+    with single_blas_thread():
+        res = analyze_case(case)
     return res, None, {"pid": os.getpid(), "wall": time.perf_counter() - t0, "cpu": time.process_time() - c0}
 
 

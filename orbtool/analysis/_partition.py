@@ -81,7 +81,13 @@ def sphere_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, positi
         ov = offs @ voxel                                                 # stencil vectors, Å
         oo = np.einsum("pi,pi->p", ov, ov)
         keep = oo <= (r + half_diag) ** 2
-        offs, ov, oo = offs[keep], ov[keep], oo[keep]
+        # points within r − half_diag of the nearest grid point are inside whatever the atom's
+        # sub-voxel offset (|δ| ≤ half_diag): summed without a distance test; only the shell is tested
+        sure = oo[keep] <= max(r - half_diag, 0.0) ** 2
+        order = np.concatenate([np.flatnonzero(sure), np.flatnonzero(~sure)])
+        offs, ov, oo = offs[keep][order], ov[keep][order], oo[keep][order]
+        n_sure = int(sure.sum())
+        ov_s, oo_s = ov[n_sure:], oo[n_sure:]
         cols = offs + reach                                               # column in the per-axis tables
         lin_o = (offs @ strides).astype(itype)                           # flat offsets when nothing wraps
         of_r = radii == r
@@ -90,8 +96,6 @@ def sphere_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, positi
         for atoms, wraps in ((np.flatnonzero(of_r & inner), False), (np.flatnonzero(of_r & ~inner), True)):
             for lo in range(0, len(atoms), step):
                 sel = atoms[lo:lo + step]
-                # |o + δ|² = |o|² + 2 o·δ + |δ|², with δ the atom-to-point vector (BLAS for the middle term)
-                d2 = oo[None, :] + 2.0 * (dvec[sel] @ ov.T) + np.einsum("ci,ci->c", dvec[sel], dvec[sel])[:, None]
                 if not wraps:
                     lin = (base[sel] @ strides).astype(itype)[:, None] + lin_o[None, :]
                 else:
@@ -102,7 +106,9 @@ def sphere_sums(values: np.ndarray, cell: np.ndarray, origin: np.ndarray, positi
                         part = table[:, cols[:, axis]]
                         lin = part if lin is None else lin + part
                 vals = flat[lin]
-                out[sel] = np.where(d2 <= r * r, vals, 0.0).sum(axis=1)
+                # |o + δ|² = |o|² + 2 o·δ + |δ|², with δ the atom-to-point vector (BLAS for the middle term)
+                d2 = oo_s[None, :] + 2.0 * (dvec[sel] @ ov_s.T) + np.einsum("ci,ci->c", dvec[sel], dvec[sel])[:, None]
+                out[sel] = vals[:, :n_sure].sum(axis=1) + np.where(d2 <= r * r, vals[:, n_sure:], 0.0).sum(axis=1)
     return out
 
 

@@ -232,17 +232,27 @@ def _radii_for(atoms, radii) -> np.ndarray:
 
 
 def _overlapping_pairs(atoms, r: np.ndarray) -> int:
-    """Number of atom pairs i < j (nearest periodic image) whose spheres overlap, r_i + r_j > d_ij.
+    """Number of atom pairs i < j whose spheres overlap, r_i + r_j > d_ij, for any periodic image.
 
-    A cell-list neighbour search (``ase.neighborlist.neighbor_list``) within 2·max(r) instead of
-    every pairwise distance: linear in the number of atoms.
+    A k-d tree neighbour search (``scipy.spatial.cKDTree.sparse_distance_matrix``) of the atoms
+    against their images in the 27 neighbouring cells within 2·max(r), instead of every pairwise
+    distance: about linear in the number of atoms. The 27 cells hold every image within reach
+    because :func:`~orbtool.analysis._partition.sphere_sums` has already refused spheres wider
+    than the cell.
     """
     if len(atoms) < 2 or not (r > 0).any():
         return 0
-    from ase.neighborlist import neighbor_list
-    i, j, d = neighbor_list("ijd", atoms, 2.0 * float(r.max()) + 1e-9)
+    from scipy.spatial import cKDTree
+    n = len(atoms)
+    cell = np.asarray(atoms.get_cell(), float)
+    frac = atoms.get_scaled_positions(wrap=True)
+    shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)], dtype=float)
+    images = ((frac[None, :, :] + shifts[:, None, :]).reshape(-1, 3)) @ cell
+    near = cKDTree(frac @ cell).sparse_distance_matrix(cKDTree(images), 2.0 * float(r.max()) + 1e-9,
+                                                       output_type="ndarray")
+    i, j, d = near["i"], near["j"] % n, near["v"]
     hit = (i < j) & (r[i] > 0) & (r[j] > 0) & (r[i] + r[j] > d)
-    return int(np.unique(i[hit] * len(atoms) + j[hit]).size)
+    return int(np.unique(i[hit].astype(np.int64) * n + j[hit]).size)
 
 
 # ---------------------------------------------------------------- public functions

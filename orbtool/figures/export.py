@@ -8,6 +8,9 @@ from pathlib import Path
 COLUMN_WIDTH_IN = 85 / 25.4
 DOUBLE_WIDTH_IN = 178 / 25.4
 
+#: zlib level of PNG files (lossless at every level: 1 is the fastest, 9 the smallest)
+PNG_COMPRESS_LEVEL = 1
+
 #: rcParams that embed fonts: TrueType (type 42) in PDF, real text in SVG (searchable, editable)
 FONT_EMBEDDING = {"pdf.fonttype": 42, "ps.fonttype": 42, "svg.fonttype": "none"}
 
@@ -64,10 +67,12 @@ def save_figure(fig, base, formats=("svg", "pdf", "png"), dpi: int = 600) -> lis
     out = []
     # reproducible files: no creation dates, fixed SVG element ids (same input → same bytes)
     meta = {"pdf": {"Creator": "orbtool", "CreationDate": None}, "svg": {"Creator": "orbtool", "Date": None}}
+    # PNG: the same pixels, zlib level 1 instead of 6 (lossless either way; ~25 % less time, ~20 % larger file)
+    extra = {"png": {"pil_kwargs": {"compress_level": PNG_COMPRESS_LEVEL}}}
     with plt.rc_context({**FONT_EMBEDDING, "svg.hashsalt": "orbtool"}):
         for fmt in formats:
             p = base.with_suffix(f".{fmt}")
             atomic_write(p, lambda fh, fmt=fmt: fig.savefig(fh, format=fmt, dpi=dpi if fmt == "png" else None,
-                                                            metadata=meta.get(fmt)))
+                                                            metadata=meta.get(fmt), **extra.get(fmt, {})))
             out.append(p)
     return out

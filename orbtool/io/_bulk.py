@@ -12,16 +12,35 @@ parser, which is slower but still vectorised and refuses non-numeric tokens.
 
 from __future__ import annotations
 
+import os
 import re
 import warnings
+from collections import deque
 
 import numpy as np
 
 from ..errors import InputFormatError
 
-__all__ = ["ValueReader"]
+__all__ = ["ValueReader", "parse_workers"]
 
 _CHUNK = 1 << 20
+_PARALLEL_MIN = 1 << 20  # values; smaller blocks are parsed in the calling thread
+
+
+def parse_workers() -> int:
+    """Threads used to decode a large value block: ``ORBTOOL_PARSE_THREADS`` if set, else 1.
+
+    Serial by default: on an idle 2-core machine 2 threads read a 180³ cube in the same wall time
+    (0.67 vs 0.70 s signed, 0.47 vs 0.46 s density) for ~45 % more CPU, because the decoder's many
+    short numpy passes per segment hold the GIL too often; the threaded path stays for measurement.
+    """
+    env = os.environ.get("ORBTOOL_PARSE_THREADS", "").strip()
+    try:
+        return max(1, int(env)) if env else 1
+    except ValueError:
+        return 1
+
+
 # byte -> 0 for whitespace, 1 otherwise (bytes.translate is much faster than a numpy lookup)
 _CLASS = bytes(0 if b in (9, 10, 11, 12, 13, 32) else 1 for b in range(256))
 
@@ -202,71 +221,139 @@ class ValueReader:
         self.pending += data
         return True
 
-    def fill(self, out: np.ndarray, what: str) -> None:
+    def _segment(self) -> bytes | None:
+        """The next segment: the bytes up to the last line end (else whitespace) within the next
+        ``_CHUNK`` bytes, or everything that is left at the end of the file; None when nothing is left.
+
+        Segment boundaries depend only on the bytes from where a :meth:`fill` starts, not on how
+        far the stream has been read, so the serial and the threaded fill cut a block identically.
+        """
+        while len(self.pending) < _CHUNK and self._more():
+            pass
+        buf = self.pending
+        if not buf:
+            return None
+        if self.eof and len(buf) <= _CHUNK:
+            self.pending = b""
+            return buf
+        window = buf[:_CHUNK]
+        cut = window.rfind(b"\n")
+        if cut < 0:
+            cut = max(window.rfind(b" "), window.rfind(b"\t"), window.rfind(b"\r"))
+        while cut < 0:  # one token longer than a chunk: up to the next whitespace
+            m = re.search(rb"\s", buf)
+            if m is not None:
+                cut = m.start()
+            elif not self._more():
+                cut = len(buf) - 1
+            buf = self.pending
+        self.pending = buf[cut + 1:]
+        return buf[:cut + 1]
+
+    def fill(self, out: np.ndarray, what: str, workers: int | None = None) -> None:
         """Fill the 1-D array ``out`` with the next ``out.size`` numbers.
+
+        The block is cut into segments at line ends (:meth:`_segment`) and each segment is
+        decoded on its own; a token's value depends only on its own bytes and its segment's
+        decoder, so the result is bit-identical whatever the number of threads. With
+        ``workers > 1`` (default: :func:`parse_workers`) segments of the fixed layout are
+        decoded in that many threads (numpy releases the GIL in the array passes) while this
+        thread reads ahead; any segment the fast decoder does not fully take, and the segment
+        where the block ends, are decoded here by the serial rule, with its error messages.
 
         Raises :class:`InputFormatError` naming the line of the first bad token, or the
         line where the file ended too early.
         """
         need, done = out.size, 0
-        while done < need:
-            if len(self.pending) < _CHUNK // 2:
-                self._more()
-            buf = self.pending
-            if not buf:
-                raise InputFormatError(self.path, self.line, f"file ended after {done} of {need} values of {what}",
-                                       field=what)
-            if not self.eof:
-                cut = max(buf.rfind(b" "), buf.rfind(b"\n"))
-                if cut < 0:
-                    if not self._more():
-                        cut = len(buf)
-                    else:
-                        continue
-                n_use = min(cut + 1, len(buf))
-            else:
-                n_use = len(buf)
-            arr = np.frombuffer(buf, dtype=np.uint8, count=n_use)  # no copy
-            fast = self._fast(buf, arr, need - done)
-            if fast is not None:
-                vals, end_byte = fast
-                take = vals.size
-            else:
-                usable = buf[:n_use]
-                nonws = np.frombuffer(usable.translate(_CLASS), dtype=bool)
-                edges = np.flatnonzero(np.diff(nonws, prepend=False, append=False))
-                starts, ends = edges[0::2], edges[1::2]
-                take = min(starts.size, need - done)
-                if take == 0:
-                    if self.eof:
-                        raise InputFormatError(self.path, self.line + usable.count(b"\n"),
-                                               f"file ended after {done} of {need} values of {what}", field=what)
-                    self.line += usable.count(b"\n")
-                    self.pending = buf[len(usable):]
-                    continue
-                s, e = starts[:take], ends[:take]
-                end_byte = int(e[-1])
-                vals = self._decode(s, e, usable, end_byte, what)
-            if not np.isfinite(vals).all():
-                k = int(np.flatnonzero(~np.isfinite(vals))[0])
-                raise InputFormatError(self.path, self.line + _line_of_token(buf[:n_use], k),
-                                       f"{what} contains NaN or inf", field=what)
-            out[done:done + take] = vals
-            done += take
-            self.line += buf.count(b"\n", 0, end_byte)
-            self.pending = buf[end_byte:]
-
-    def _fast(self, usable: bytes, arr: np.ndarray, need: int):
-        """Dot-anchored decoding of a block in one fixed layout, or None."""
+        workers = parse_workers() if workers is None else max(1, int(workers))
         if self.layout is None:
-            head = usable[:80].split()
-            self.layout = (_Layout.detect(head[0]) if head else None) or False
-        if not self.layout:
-            return None
-        dots = np.flatnonzero(arr == 46)[:need]
+            head = self.pending.lstrip()[:80]
+            if len(head) < 80 and self._more():
+                head = self.pending.lstrip()[:80]
+            toks = head.split()
+            self.layout = (_Layout.detect(toks[0]) if toks else None) or False
+        pool = None
+        if workers > 1 and self.layout and need >= _PARALLEL_MIN:
+            from concurrent.futures import ThreadPoolExecutor
+            pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="orbtool-parse")
+        ahead: deque = deque()  # (segment, future or None, dots in it)
+        ahead_dots = 0
+        try:
+            while done < need:
+                while pool is not None and len(ahead) < 2 * workers and done + ahead_dots < need:
+                    seg = self._segment()
+                    if seg is None:
+                        break
+                    n_dots = seg.count(b".")
+                    ahead.append((seg, pool.submit(self._whole_fast, seg), n_dots))
+                    ahead_dots += n_dots
+                if ahead:
+                    seg, fut, n_dots = ahead.popleft()
+                    ahead_dots -= n_dots
+                    res = fut.result()
+                else:
+                    seg, res = self._segment(), None
+                    if seg is None:
+                        raise InputFormatError(self.path, self.line, f"file ended after {done} of {need} values "
+                                               f"of {what}", field=what)
+                if res is None or res[0].size > need - done:
+                    res = self._segment_values(seg, need - done, what)
+                vals, stop = res
+                take = vals.size
+                out[done:done + take] = vals
+                done += take
+                end = stop if done == need else len(seg)  # the rest of the last line stays unread
+                self.line += seg.count(b"\n", 0, end)
+                if done == need:
+                    rest = seg[end:] + b"".join(a[0] for a in ahead)
+                    ahead.clear()
+                    self.pending = rest + self.pending
+                else:
+                    self.line += seg.count(b"\n", end)
+        finally:
+            if pool is not None:
+                for _, fut, _ in ahead:
+                    fut.cancel()
+                pool.shutdown(wait=True)
+
+    def _whole_fast(self, seg: bytes):
+        """(values, len(seg)) if the fixed-layout decoder takes every token of ``seg`` and all
+        are finite, else None. Runs in a worker thread: touches nothing but its arguments."""
+        arr = np.frombuffer(seg, dtype=np.uint8)
+        dots = np.flatnonzero(arr == 46)
         if dots.size == 0:
             return None
-        return self.layout.decode(arr, dots)
+        res = self.layout.decode(arr, dots)
+        if res is None or seg[res[1]:].strip() or not np.isfinite(res[0]).all():
+            return None
+        return res
+
+    def _segment_values(self, seg: bytes, limit: int, what: str):
+        """(values, end byte of the last token) of at most ``limit`` tokens of ``seg``: the
+        fixed-layout decoder if it takes them all (and, below the limit, nothing but whitespace
+        follows), else numpy's text parser."""
+        arr = np.frombuffer(seg, dtype=np.uint8)
+        if self.layout:
+            dots = np.flatnonzero(arr == 46)[:limit]
+            res = self.layout.decode(arr, dots) if dots.size else None
+            if res is not None:
+                vals, stop = res
+                if np.isfinite(vals).all() and (vals.size == limit or not seg[stop:].strip()):
+                    return vals, stop
+        nonws = np.frombuffer(seg.translate(_CLASS), dtype=bool)
+        edges = np.flatnonzero(np.diff(nonws, prepend=False, append=False))
+        starts, ends = edges[0::2], edges[1::2]
+        take = min(starts.size, limit)
+        if take == 0:
+            return np.empty(0), 0
+        s, e = starts[:take], ends[:take]
+        end_byte = int(e[-1])
+        vals = self._decode(s, e, seg, end_byte, what)
+        if not np.isfinite(vals).all():
+            k = int(np.flatnonzero(~np.isfinite(vals))[0])
+            raise InputFormatError(self.path, self.line + _line_of_token(seg, k),
+                                   f"{what} contains NaN or inf", field=what)
+        return vals, end_byte
 
     def _decode(self, s, e, usable, end_byte, what):
         text = usable[int(s[0]):end_byte]

@@ -5,7 +5,9 @@ distortion mode of the first shell (Å, unit-norm patterns: amplitude a moves th
 3N-dimensional displacement space), (b) a rigid shift of the first-shell on-site energies (eV) and
 (c) swaps of the first-shell element for every element of the same term-value table, and reports the
 smallest change that brings the defect level within ``within`` eV of a band edge, with its 1σ from the
-fit covariance (σ_change = σ_level / |∂level/∂change|, linear propagation).
+fit covariance (σ_change = σ_level / |∂level/∂change|, linear propagation; reported as ``inf`` with a
+note when the slope is so small that this σ would exceed the whole scanned range, e.g. a symmetric
+mode at zero amplitude whose first-order effect vanishes).
 
 :func:`explain` turns the numbers into sentences: the level and its verdict, which orbitals carry it,
 how strong the dominant coupling is, and how far each knob moves it per unit change.
@@ -13,6 +15,7 @@ how strong the dominant coupling is, and how far each knob moves it per unit cha
 
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass
 
 import numpy as np
@@ -21,7 +24,70 @@ from ..errors import FitError
 from .elements import available_elements, term_values
 from .whatif import _case, _compiled, _gradient, predict, scan
 
-__all__ = ["ShallowChange", "smallest_change_to_shallow", "explain"]
+__all__ = ["ShallowChange", "smallest_change_to_shallow", "explain", "single_blas_thread"]
+
+
+_BLAS: list = []  # [(set_local or None, set_global or None, get_global or None)] once looked up
+
+
+def _openblas():
+    """Thread-count functions of numpy's bundled OpenBLAS (ctypes), or Nones when there is none."""
+    if not _BLAS:
+        found = (None, None, None)
+        try:
+            import ctypes
+            import glob
+            import os
+            libs = os.path.join(os.path.dirname(os.path.dirname(np.__file__)), "numpy.libs")
+            for path in sorted(glob.glob(os.path.join(libs, "*openblas*"))):
+                lib = ctypes.CDLL(path)  # the copy numpy already loaded (same path: same handle)
+
+                def sym(*names):
+                    for n in names:
+                        f = getattr(lib, n, None)
+                        if f is not None:
+                            return f
+                    return None
+                found = (sym("openblas_set_num_threads_local"),
+                         sym("scipy_openblas_set_num_threads64_", "openblas_set_num_threads64_",
+                             "openblas_set_num_threads"),
+                         sym("scipy_openblas_get_num_threads64_", "openblas_get_num_threads64_",
+                             "openblas_get_num_threads"))
+                if any(f is not None for f in found):
+                    break
+        except OSError:
+            pass
+        _BLAS.append(found)
+    return _BLAS[0]
+
+
+@contextlib.contextmanager
+def single_blas_thread():
+    """Run the enclosed linear algebra with one BLAS thread in the calling thread.
+
+    Stacks of small symmetric eigenproblems (tens of orbitals) gain nothing from BLAS threads, and
+    on a busy machine the threads' synchronisation costs far more than the work: measured on a
+    2-core machine at load ~18, ``np.linalg.eigh`` of 300 matrices 72×72 took 160–215 s wall with
+    OpenBLAS's default threads and 3.4–3.9 s with one thread. Uses OpenBLAS's thread-local setting
+    (``openblas_set_num_threads_local``, OpenBLAS ≥ 0.3.27) when present, so other threads are not
+    affected; does nothing for other BLAS libraries.
+    """
+    set_local, set_global, get_global = _openblas()
+    if set_local is not None:
+        old = set_local(1)
+        try:
+            yield
+        finally:
+            set_local(old if old > 0 else 0)
+    elif set_global is not None and get_global is not None:
+        old = get_global()
+        set_global(1)
+        try:
+            yield
+        finally:
+            set_global(old)
+    else:
+        yield
 
 
 @dataclass(frozen=True)
@@ -30,7 +96,9 @@ class ShallowChange:
 
     knob : str  e.g. "mode:breathing", "onsite_shift", "swap:Ga->Al".
     change : float  amplitude (Å), shift (eV) or, for swaps, the hybrid on-site change (eV).
-    unit : str; sigma : float (same unit); level_after : float (eV above VBM).
+    unit : str; sigma : float (same unit; ``inf`` when the knob has no first-order effect where the
+    condition is met, so linear propagation gives no uncertainty: the note says so); level_after : float
+    (eV above VBM).
     reached : bool  whether the condition is met inside the scanned range; note : str.
     """
 
@@ -129,6 +197,11 @@ def smallest_change_to_shallow(fit, within: float = 0.1, edge: str = "nearest", 
     """
     if edge not in ("nearest", "vbm", "cbm"):
         raise FitError(f"edge must be 'nearest', 'vbm' or 'cbm', got {edge!r}")
+    with single_blas_thread():
+        return _smallest_change(fit, within, edge, case, max_amplitude, max_shift, n_grid, swaps)
+
+
+def _smallest_change(fit, within, edge, case, max_amplitude, max_shift, n_grid, swaps):
     case = _case(fit, case)
     model = fit.problem.models[case]
     gap = fit.problem.by_case[case][0].gap
@@ -177,7 +250,15 @@ def _entry(fit, case, knob, unit, grid, lev, gap, within, edge, sigma_level):
                              f"no change within ±{abs(grid).max():g} {unit} reaches the band edge "
                              f"(level spans {lev.min():.3f}…{lev.max():.3f} eV above the VBM)")
     slope = float(np.interp(x, grid, np.gradient(lev, grid)))
+    span = float(np.abs(grid).max())
     sig = sigma_level / abs(slope) if slope != 0 else float("inf")
+    if not np.isfinite(sig) or sig > span:
+        # no first-order effect here (e.g. a mode that keeps the site's symmetry to first order, at
+        # zero amplitude): linear propagation σ_level/|slope| does not give the uncertainty of the change
+        return ShallowChange(knob, x, unit, float("inf"), float(np.interp(x, grid, lev)), True,
+                             f"no first-order effect here (slope {slope:+.1e} eV per {unit}): the level's "
+                             f"±{sigma_level:.3f} eV does not translate into an uncertainty of the change "
+                             f"within ±{span:g} {unit} (σ reported as inf)")
     return ShallowChange(knob, x, unit, float(sig), float(np.interp(x, grid, lev)), True,
                          f"level moves {slope:+.3f} eV per {unit} here")
 
