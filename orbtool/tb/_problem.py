@@ -135,7 +135,7 @@ def collect_models(model, targets):
     return models
 
 
-def match_state(model, target, tol: float = 1e-5):
+def match_state(model, target, tol: float | None = None):
     """The hybrid model with ``level="auto"`` follows the DFT state's identity when the target knows it:
     the lowest cluster multiplet with as many levels as the DFT multiplet (``target.degeneracy``), at
     the model's default parameters. No valence-counting rule is used then (counting by group valence
@@ -145,6 +145,9 @@ def match_state(model, target, tol: float = 1e-5):
 
     if model.orbitals != "hybrid" or model.level != "auto" or not getattr(target, "degeneracy", None):
         return model
+    from ._evaluate import DEGENERATE
+
+    tol = DEGENERATE if tol is None else tol
     lv = model.solve()
     E = lv.energies[0]
     start, groups = 0, []

@@ -39,6 +39,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..errors import FitError, ModelError
+from ._evaluate import multiplet_members
 from ._locate import check_elements
 from .elements import term_values
 from .host_bands import model_vbm
@@ -244,7 +245,7 @@ def _gradient(fit, case, cc, lv=None, **knobs):
     H = cc.hamiltonian(full)
     dH = (H[1:] - H[0]) / h[:, None, None]
     E, V = lv.energies[0], lv.vectors[0]
-    members = np.flatnonzero(np.abs(E - lv.level[0]) < 1e-5)
+    members = multiplet_members(E, int(lv.index[0]))   # the whole multiplet, by the one degeneracy rule
     Vm = V[:, members]
     g = np.einsum("im,kij,jm->k", Vm, dH, Vm) / len(members)
     vbm = np.broadcast_to(np.asarray(vbm, dtype=float), (len(X),))
