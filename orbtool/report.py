@@ -302,10 +302,13 @@ def data_conventions(case, analysis=None) -> dict:
 
 def _conventions_section(fam, res, base=None) -> str:
     """HTML: per case, the alignment routes, band edges and unit conventions (:func:`data_conventions`)."""
+    from .batch import full_case
+
     blocks = []
     for r in res.results:
         try:
-            d = data_conventions(fam[r.name], r)
+            # a family analysed in workers holds summaries: re-read the case, so the routes are the worker's
+            d = data_conventions(full_case(fam, r.name), r)
         except Exception as exc:  # one case must never cost the user the report
             d = {"alignment": [f"not reported: {type(exc).__name__}: {exc}"], "edges": [], "units": [], "warnings": []}
         text = ["alignment:", *("  " + x for x in d["alignment"]), "band edges:", *("  " + x for x in d["edges"]),
